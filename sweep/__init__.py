@@ -1,0 +1,22 @@
+"""Parameter sweeps of stochastic reaction-network simulations into a resumable Zarr store.
+
+The public Python API; the ``sweep`` command line is a thin layer over it::
+
+    import sweep
+    spec = sweep.load("configs/reporter.toml")
+    summary = sweep.run(spec, workers=2)
+    ds = sweep.open_results(summary.store)      # xarray.Dataset
+"""
+
+from __future__ import annotations
+
+from sweep.errors import KernelError, SpecError, StoreError, SweepError
+from sweep.runner import Progress, RunSummary, Started, run
+from sweep.spec import Spec, load
+from sweep.store import open_dataset as open_results
+from sweep.status import StoreStatus, status
+
+__all__ = [
+    "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
+    "StoreStatus", "SweepError", "load", "open_results", "run", "status",
+]

@@ -1,0 +1,103 @@
+"""Kernel speed benchmark: reaction events per CPU-second on built-in networks.
+
+The four networks mirror a common reference set (isomerization, two-stage gene
+expression, dimerization, a 50-species chain) so that figures can be set beside an
+external C implementation of the direct method measured on the same machine.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+from dataclasses import dataclass
+from typing import Callable, Iterable
+
+import numpy as np
+
+from sweep.model import Model, compile_network, initial_counts, parse_model, rate_constants
+
+
+def _chain(n: int) -> dict:
+    species = {f"S{i}": (1000 if i == 0 else 0) for i in range(n)}
+    reactions = {}
+    for i in range(n - 1):
+        reactions[f"f{i}"] = {"reaction": f"S{i} -> S{i + 1}", "rate": 1.0}
+        reactions[f"b{i}"] = {"reaction": f"S{i + 1} -> S{i}", "rate": 1.0}
+    return {"species": species, "reactions": reactions}
+
+
+NETWORKS: dict[str, tuple[dict, float]] = {
+    "isomerization": ({"species": {"A": 1000, "B": 0},
+                       "reactions": {"f": {"reaction": "A -> B", "rate": 1.0},
+                                     "b": {"reaction": "B -> A", "rate": 1.0}}}, 100.0),
+    "gene_expression": ({"species": {"M": 0, "P": 0},
+                         "reactions": {"tx": {"reaction": "0 -> M", "rate": 10.0},
+                                       "dm": {"reaction": "M -> 0", "rate": 1.0},
+                                       "tl": {"reaction": "M -> M + P", "rate": 10.0},
+                                       "dp": {"reaction": "P -> 0", "rate": 0.1}}}, 1000.0),
+    "dimerization": ({"species": {"A": 1000, "B": 0},
+                      "reactions": {"f": {"reaction": "2 A -> B", "rate": 0.001},
+                                    "b": {"reaction": "B -> 2 A", "rate": 0.5}}}, 400.0),
+    "chain50": (_chain(50), 100.0),
+}
+
+
+@dataclass(frozen=True)
+class BenchResult:
+    network: str
+    method: str
+    events_per_cpu_second: float
+    events_per_replicate: float
+
+
+def measure(method: str = "direct", networks: Iterable[str] | None = None, repeats: int = 5,
+            min_seconds: float = 0.5, samples: int = 101) -> list[BenchResult]:
+    """Median events per CPU-second of ``method`` over ``repeats`` timed batches.
+
+    Each batch runs whole replicates until at least ``min_seconds`` of CPU time passed,
+    after one warm-up call (which also compiles the kernel).
+    """
+    import kernels
+
+    kernel = kernels.get(method)
+    out = []
+    for name in networks or NETWORKS:
+        table, t_end = NETWORKS[name]
+        model = parse_model(table, f"<bench {name}>")
+        out.append(_measure_one(kernel.simulate, name, method, model, t_end, repeats, min_seconds, samples))
+    return out
+
+
+def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResult:
+    """Kernel speed on the first point of a spec (its model, rates and time grid)."""
+    import kernels
+    from sweep.spec import load
+
+    spec = load(path)
+    values = spec.values_at(spec.points()[0])
+    table = None
+    return _measure_one(kernels.get(spec.method).simulate, f"{Path(path).name} (point 0)", spec.method,
+                        spec.model, spec.times[-1], repeats, min_seconds, len(spec.times), values, table)
+
+
+def _measure_one(simulate: Callable, name: str, method: str, model: Model, t_end: float,
+                 repeats: int, min_seconds: float, samples: int, values=None, _=None) -> BenchResult:
+    net = compile_network(model)
+    values = values if values is not None else model.parameter_values
+    args = (net, rate_constants(model, values), initial_counts(model, values), np.linspace(0.0, t_end, samples))
+    seed = 0
+    simulate(*args, [np.random.SeedSequence(12345, spawn_key=(0, 0))], 10**12)
+    rates, per_rep = [], []
+    for _ in range(repeats):
+        events, start, n = 0, time.process_time(), 0
+        while True:
+            seed += 1
+            res = simulate(*args, [np.random.SeedSequence(12345, spawn_key=(1, seed))], 10**12)
+            events += int(res.events.sum())
+            n += 1
+            elapsed = time.process_time() - start
+            if elapsed >= min_seconds:
+                break
+        rates.append(events / elapsed)
+        per_rep.append(events / n)
+    return BenchResult(name, method, float(np.median(rates)), float(np.mean(per_rep)))

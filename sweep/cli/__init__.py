@@ -1,0 +1,27 @@
+"""The ``sweep`` command line: a thin typer layer over the public API in ``sweep``.
+
+Exit codes: 0 ok, 1 some tasks failed, 2 bad input (spec, model, store or options).
+"""
+
+from __future__ import annotations
+
+import typer
+
+from sweep.cli import bench, inspect, running, setup
+
+app = typer.Typer(
+    name="sweep",
+    help="Parameter sweeps of stochastic reaction-network simulations into a resumable Zarr store.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+app.command("init")(setup.init)
+app.command("check")(setup.check)
+app.command("run")(running.run)
+app.command("status")(inspect.status)
+app.command("bench")(bench.bench)
+
+
+def main() -> None:
+    app()

@@ -1,0 +1,91 @@
+"""`sweep run`: run or resume a sweep with a live progress bar."""
+
+from __future__ import annotations
+
+import shlex
+import sys
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn, TimeRemainingColumn
+from rich.table import Table
+
+import sweep
+from sweep import store as store_mod
+from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, si
+
+
+@exits_on_errors
+def run(
+    spec_path: Annotated[Path, typer.Argument(metavar="SPEC", help="The sweep spec (TOML).")],
+    store: Annotated[Path | None, typer.Option(help="Results store; overrides run.store.")] = None,
+    workers: Annotated[int | None, typer.Option(min=1, help="Local worker processes (default: one per core).")] = None,
+    scheduler: Annotated[str | None, typer.Option(help="Address of an existing Dask scheduler, e.g. tcp://10.0.0.5:8786.")] = None,
+    fresh: Annotated[bool, typer.Option("--fresh", help="Delete the existing store and start over.")] = False,
+    yes: Annotated[bool, typer.Option("--yes", "-y", help="Do not ask before deleting with --fresh.")] = False,
+) -> None:
+    """Run the sweep; run it again on the same store and it resumes where it stopped."""
+    spec = sweep.load(spec_path, store=store)
+    if fresh and store_mod.exists(spec.store) and not yes:
+        if not sys.stdin.isatty():
+            errors.print(f"[bold red]error:[/] --fresh would delete {spec.store}; add --yes to confirm")
+            raise typer.Exit(EXIT_BAD_INPUT)
+        typer.confirm(f"Delete {spec.store} and start over?", abort=True)
+    bar = Progress(
+        TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("tasks"),
+        TextColumn("{task.fields[rate]} events/s"), TimeElapsedColumn(), TextColumn("ETA"), TimeRemainingColumn(),
+        console=console, transient=False,
+    )
+    state = {}
+
+    def on_start(started: sweep.Started) -> None:
+        if started.resumed:
+            console.print(f"resuming: {started.pending:,} of {started.total:,} tasks left")
+        if started.dashboard:
+            console.print(f"Dask dashboard: {started.dashboard}")
+        bar.start()
+        state["task"] = bar.add_task("simulating", total=started.total,
+                                     completed=started.total - started.pending, rate="-")
+
+    def on_progress(p: sweep.Progress) -> None:
+        bar.update(state["task"], completed=p.done, rate=si(p.events_per_second))
+
+    try:
+        summary = sweep.run(spec, workers=workers, scheduler=scheduler, fresh=fresh,
+                            on_start=on_start, on_progress=on_progress)
+    finally:
+        bar.stop()
+    _report(summary, spec)
+    if summary.failed:
+        raise typer.Exit(EXIT_FAILED_TASKS)
+
+
+def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
+    if summary.tasks_run == 0 and not summary.failed:
+        console.print(f"nothing to do: all {summary.tasks_total:,} tasks of {summary.store} are done")
+        return
+    table = Table(title="Sweep finished" if not summary.failed else "Sweep finished with failures",
+                  show_header=False, title_justify="left")
+    table.add_column(style="bold")
+    table.add_column()
+    table.add_row("store", str(summary.store))
+    table.add_row("points x replicates", f"{summary.points:,} x {spec.replicates:,}")
+    table.add_row("tasks", f"{summary.tasks_run:,} run, {summary.tasks_skipped:,} already done, "
+                           f"{len(summary.failed):,} failed, of {summary.tasks_total:,}")
+    table.add_row("reaction events", f"{summary.events:,}")
+    table.add_row("wall time", duration(summary.seconds))
+    table.add_row("events per second", si(summary.events / summary.seconds if summary.seconds else 0))
+    table.add_row("stopped at event cap", f"{summary.capped:,} replicates")
+    table.add_row("numerical failures", f"{summary.numerical:,} replicates")
+    console.print(table)
+    for failure in summary.failed[:20]:
+        errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {failure.error}",
+                     highlight=False)
+    if summary.failed:
+        errors.print(f"rerun to retry the failed tasks: {_resume_command(spec)}", highlight=False)
+    console.print(f"open it with: [bold]xarray.open_zarr({str(summary.store)!r})[/]", highlight=False)
+
+
+def _resume_command(spec: sweep.Spec) -> str:
+    return f"sweep run {shlex.quote(str(spec.path))} --store {shlex.quote(str(spec.store))}"

@@ -1,0 +1,74 @@
+"""`sweep init` and `sweep check`: start a spec, and see what it would run."""
+
+from __future__ import annotations
+
+from importlib import resources
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table
+
+from sweep import load
+from sweep.cli.common import console, exits_on_errors
+from sweep.errors import SpecError
+from sweep.model import describe
+from sweep.tasks import make_tasks
+
+_TEMPLATES = ("spec.toml", "model.toml")
+
+
+@exits_on_errors
+def init(
+    directory: Annotated[Path, typer.Argument(help="Folder to write spec.toml and model.toml into.")] = Path("."),
+    force: Annotated[bool, typer.Option("--force", help="Overwrite existing files.")] = False,
+) -> None:
+    """Write a commented example spec and model to start from."""
+    directory.mkdir(parents=True, exist_ok=True)
+    for name in _TEMPLATES:
+        target = directory / name
+        if target.exists() and not force:
+            raise SpecError(str(target), "", "already exists", fix="use --force to overwrite, or pick another folder")
+    for name in _TEMPLATES:
+        text = resources.files("sweep.templates").joinpath(name).read_text(encoding="utf-8")
+        (directory / name).write_text(text, encoding="utf-8")
+        console.print(f"wrote [bold]{directory / name}[/]")
+    console.print(f"next: [bold]sweep check {directory / 'spec.toml'}[/], then [bold]sweep run {directory / 'spec.toml'}[/]")
+
+
+@exits_on_errors
+def check(
+    spec_path: Annotated[Path, typer.Argument(metavar="SPEC", help="The sweep spec (TOML).")],
+    store: Annotated[Path | None, typer.Option(help="Results store; overrides run.store.")] = None,
+) -> None:
+    """Validate a spec and its model and print what would run."""
+    spec = load(spec_path, store=store)
+    model = spec.model
+    reactions = Table(title="Reactions", title_justify="left")
+    for col in ("name", "reaction", "rate"):
+        reactions.add_column(col)
+    for row in describe(model):
+        reactions.add_row(*row)
+    species = ", ".join(f"{s}={v}" for s, v in zip(model.species, model.initial))
+    points = spec.points()
+    tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
+    console.print(f"[green]ok[/] {spec_path}  (SHA-256 {spec.sha256[:12]})")
+    console.print(f"species: {species}")
+    console.print(reactions)
+    design = Table(title=f"Design: {spec.design}", title_justify="left")
+    design.add_column("parameter")
+    design.add_column("values")
+    for name, values in spec.vary:
+        design.add_row(name, ", ".join(f"{v:g}" for v in values))
+    fixed = [(n, v) for n, v in spec.fixed if n not in spec.param_names]
+    for name, value in fixed:
+        design.add_row(f"[dim]{name}[/]", f"[dim]{value:g} (fixed)[/]")
+    console.print(design)
+    n_t = len(spec.times)
+    console.print(
+        f"{points.shape[0]:,} points x {spec.replicates:,} replicates = {points.shape[0] * spec.replicates:,} "
+        f"trajectories in {len(tasks):,} tasks of up to {spec.replicates_per_task:,} replicates\n"
+        f"method {spec.method}, {n_t} samples from t={spec.times[0]:g} to t={spec.times[-1]:g}, "
+        f"root seed {spec.seed}, event cap {spec.max_events:,}\n"
+        f"store {spec.store}"
+    )

@@ -1,0 +1,168 @@
+"""End-to-end runs on a real local Dask cluster into real Zarr stores on disk."""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+
+import numpy as np
+import pytest
+import xarray as xr
+import zarr
+from distributed import LocalCluster
+from scipy import stats
+
+import sweep
+from sweep.errors import StoreError
+
+DIMER = """
+[model.species]
+A = 30
+B = 0
+[model.parameters]
+c1 = 0.02
+c2 = 0.5
+[model.reactions]
+bind = { reaction = "2 A -> B", rate = "c1" }
+split = { reaction = "B -> 2 A", rate = "c2" }
+"""
+
+BODY = """
+[run]
+replicates = 24
+replicates_per_task = {per_task}
+seed = 7
+[time]
+end = 4.0
+samples = 9
+[design.vary]
+c1 = [0.01, 0.05]
+c2 = [0.2, 1.0]
+"""
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory, spec_writer):
+    """One undisturbed 2-worker run that several tests compare against."""
+    folder = tmp_path_factory.mktemp("reference")
+    spec = sweep.load(spec_writer(folder, BODY.format(per_task=8), model=DIMER), store=folder / "ref.zarr")
+    summary = sweep.run(spec, workers=2)
+    return spec, summary
+
+
+def _arrays(path):
+    g = zarr.open_group(path, mode="r")
+    return {name: g[name][:] for name in ("counts", "status", "events", "done", "params")}
+
+
+def test_store_contract(reference):
+    """DESIGN.md's store contract: names, dims, dtypes and attributes via plain xarray."""
+    spec, summary = reference
+    ds = xr.open_zarr(summary.store)
+    dims = {name: ds[name].dims for name in ("counts", "params", "status", "events", "done", "time", "species", "param")}
+    assert dims == {
+        "counts": ("point", "replicate", "time", "species"), "params": ("point", "param"),
+        "status": ("point", "replicate"), "events": ("point", "replicate"), "done": ("point", "block"),
+        "time": ("time",), "species": ("species",), "param": ("param",),
+    }
+    assert ds["counts"].shape == (4, 24, 9, 2) and np.issubdtype(ds["counts"].dtype, np.integer)
+    assert ds["counts"].encoding["chunks"] == (1, 8, 9, 2)  # one chunk = one task
+    assert list(ds["species"].values) == ["A", "B"] and list(ds["param"].values) == ["c1", "c2"]
+    np.testing.assert_array_equal(ds["params"].values, [[0.01, 0.2], [0.01, 1.0], [0.05, 0.2], [0.05, 1.0]])
+    np.testing.assert_allclose(ds["time"].values, np.linspace(0, 4, 9))
+    assert bool(ds["done"].all()) and summary.tasks_run == 12
+    assert (ds["status"].values == 0).all()
+    counts = ds["counts"].values
+    assert (counts[..., 0] + 2 * counts[..., 1] == 30).all()  # mass conserved: A + 2B
+    attrs = ds.attrs
+    assert attrs["spec"] == spec.text
+    assert attrs["spec_sha256"] == hashlib.sha256(spec.text.encode() + b"\0").hexdigest()
+    assert attrs["method"] == "direct" and attrs["root_seed"] == 7
+    assert {"stochsweep", "numpy", "numba", "zarr"} <= set(attrs["versions"])
+
+
+def test_same_bytes_for_any_workers_and_block_size(reference, tmp_path, spec_file):
+    """Seeds per (point, replicate): worker count and replicates per task change nothing."""
+    _, ref = reference
+    expected = _arrays(ref.store)
+    one = sweep.load(spec_file(BODY.format(per_task=8), model=DIMER), store=tmp_path / "one.zarr")
+    sweep.run(one, workers=1)
+    other = sweep.load(spec_file(BODY.format(per_task=5), model=DIMER, name="b.toml"), store=tmp_path / "b.zarr")
+    sweep.run(other, workers=2)
+    for got in (_arrays(one.store), _arrays(other.store)):
+        for name in ("counts", "status", "events", "params"):
+            np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
+
+
+def test_existing_scheduler_and_resume(reference, tmp_path, spec_file):
+    """--scheduler ADDRESS uses a running cluster; a rerun only does what is not done."""
+    _, ref = reference
+    spec = sweep.load(spec_file(BODY.format(per_task=8), model=DIMER), store=tmp_path / "s.zarr")
+    with LocalCluster(n_workers=1, threads_per_worker=1, host="127.0.0.1", dashboard_address=":0",
+                      silence_logs=logging.ERROR) as cluster:
+        first = sweep.run(spec, scheduler=cluster.scheduler_address)
+        assert first.tasks_run == 12
+        again = sweep.run(spec, scheduler=cluster.scheduler_address)
+        assert again.tasks_run == 0 and again.tasks_skipped == 12
+        # forget three tasks and delete one of their chunks: a rerun redoes exactly those
+        g = zarr.open_group(spec.store, mode="r+")
+        done = g["done"][:]
+        done[1, 2] = done[3, 0] = done[0, 1] = False
+        g["done"][:] = done
+        g["counts"][1, 16:24] = -1
+        third = sweep.run(spec, scheduler=cluster.scheduler_address)
+        assert third.tasks_run == 3
+    got, expected = _arrays(spec.store), _arrays(ref.store)
+    for name in ("counts", "status", "events", "done"):
+        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
+
+
+def test_store_of_another_spec_is_refused(reference, spec_file):
+    _, ref = reference
+    other = sweep.load(spec_file(BODY.format(per_task=8).replace("seed = 7", "seed = 8"), model=DIMER),
+                       store=ref.store)
+    with pytest.raises(StoreError, match="another sweep"):
+        sweep.run(other, workers=1)
+
+
+def test_parameters_reach_each_point(tmp_path, spec_file):
+    """Immigration-death 0->A (k), A->0 (g) from A=0 is Poisson with mean (k/g)(1 - exp(-g t))
+    at every time (Gardiner, Handbook of Stochastic Methods, 1985; Jahnke & Huisinga 2007).
+    Checked through the whole pipeline at two grid points, chi-square, alpha = 0.001 each."""
+    body = """
+    [run]
+    replicates = 1500
+    replicates_per_task = 500
+    seed = 11
+    [time]
+    points = [1.0, 30.0]
+    [design.vary]
+    k = [2.0, 12.0]
+    """
+    spec = sweep.load(spec_file(body), store=tmp_path / "bd.zarr")
+    sweep.run(spec, workers=2)
+    ds = sweep.open_results(spec.store)
+    g = 0.5
+    for p, k in enumerate((2.0, 12.0)):
+        for ti, t in enumerate((1.0, 30.0)):
+            sample = ds["counts"].isel(point=p, time=ti, species=0).values
+            mean = k / g * (1 - np.exp(-g * t))
+            assert _poisson_chi2_pvalue(sample, mean) > 1e-3, (k, t)
+
+
+def _poisson_chi2_pvalue(sample: np.ndarray, mean: float) -> float:
+    """Chi-square goodness of fit to Poisson(mean), pooling bins with expected count < 5."""
+    n = sample.size
+    top = int(stats.poisson.ppf(1 - 1e-9, mean)) + 1
+    edges, observed, expected = [], [], []
+    acc_o = acc_e = 0.0
+    for x in range(top + 1):
+        acc_o += np.count_nonzero(sample == x) if x < top else np.count_nonzero(sample >= x)
+        acc_e += n * (stats.poisson.pmf(x, mean) if x < top else stats.poisson.sf(x - 1, mean))
+        if acc_e >= 5:
+            observed.append(acc_o)
+            expected.append(acc_e)
+            acc_o = acc_e = 0.0
+    observed[-1] += acc_o
+    expected[-1] += acc_e
+    return float(stats.chisquare(observed, expected).pvalue)
