@@ -15,7 +15,7 @@ class SpecError(SweepError):
     def __init__(self, source: str, field: str, problem: str, value: Any = ..., fix: str = ""):
         self.source, self.field, self.problem, self.fix = source, field, problem, fix
         where = f"{source}: {field}" if field else f"{source}"
-        if value is not ...:
+        if value is not ... and field:
             where += f" = {value!r}"
         message = f"{where}: {problem}"
         if fix:

@@ -74,8 +74,9 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     table.add_row("tasks", f"{summary.tasks_run:,} run, {summary.tasks_skipped:,} already done, "
                            f"{len(summary.failed):,} failed, of {summary.tasks_total:,}")
     table.add_row("reaction events", f"{summary.events:,}")
-    table.add_row("wall time", duration(summary.seconds))
-    table.add_row("events per second", si(summary.events / summary.seconds if summary.seconds else 0))
+    table.add_row("wall time", f"{duration(summary.seconds)} ({duration(summary.simulating_seconds)} simulating)")
+    table.add_row("events per second", f"{si(summary.events_per_second)} while simulating, "
+                                       f"{si(summary.events / summary.seconds if summary.seconds else 0)} overall")
     table.add_row("stopped at event cap", f"{summary.capped:,} replicates")
     table.add_row("numerical failures", f"{summary.numerical:,} replicates")
     console.print(table)
