@@ -39,7 +39,7 @@ from typing import Any, Mapping
 import numpy as np
 
 import kernels
-from sweep.design import DESIGNS
+from sweep import design as designs
 from sweep.errors import SpecError
 from sweep.model import Model, parse_model
 
@@ -68,17 +68,16 @@ class Spec:
     max_events: int
     times: tuple[float, ...]
     fixed: tuple[tuple[str, float], ...]
-    design: str
-    vary: tuple[tuple[str, tuple[float, ...]], ...]
+    design: designs.Design
 
     @property
     def param_names(self) -> tuple[str, ...]:
         """Names of the varied parameters, in spec order (the ``param`` coordinate)."""
-        return tuple(name for name, _ in self.vary)
+        return self.design.names
 
     def points(self) -> np.ndarray:
         """The design's parameter points, shape (points, varied parameters)."""
-        return DESIGNS[self.design](dict(self.vary))
+        return designs.expand(self.design, self.seed)
 
     def values_at(self, row: np.ndarray) -> dict[str, float]:
         """Every parameter's value at one point (fixed values overridden by the row)."""
@@ -130,10 +129,10 @@ def load(path: str | Path, store: str | Path | None = None) -> Spec:
     store_path = Path(store) if store is not None else Path(_str(run, "store", src, "run", f"{path.stem}.zarr"))
     times = _times(_sub(doc, "time", src, required=True), src)
     fixed = _fixed(_sub(doc, "parameters", src), model, src)
-    design, vary = _design(_sub(doc, "design", src), model, fixed, src)
+    design = designs.parse(_sub(doc, "design", src), dict(fixed), src)
     digest = hashlib.sha256(text.encode() + b"\0" + model_text.encode()).hexdigest()
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
-                max_events, times, fixed, design, vary)
+                max_events, times, fixed, design)
     _check_points(spec, src)
     return spec
 
@@ -248,27 +247,6 @@ def _fixed(table, model: Model, src) -> tuple[tuple[str, float], ...]:
 
 def _known(values) -> str:
     return f"known parameters: {', '.join(values) or '(none)'}"
-
-
-def _design(table, model: Model, fixed, src) -> tuple[str, tuple]:
-    _unknown(table, {"kind", "vary"}, src, "design")
-    kind = table.get("kind", "grid")
-    if kind not in DESIGNS:
-        raise SpecError(src, "design.kind", "unknown design", kind, f"choose one of: {', '.join(DESIGNS)}")
-    vary = table.get("vary", {})
-    if not isinstance(vary, dict):
-        raise SpecError(src, "design.vary", "must be a table", vary)
-    known = dict(fixed)
-    out = []
-    for name, values in vary.items():
-        field = f"design.vary.{name}"
-        if name not in known:
-            raise SpecError(src, field, "not a parameter of the model", fix=_known(known))
-        if not isinstance(values, list) or not values or not all(_is_num(v) for v in values):
-            raise SpecError(src, field, "must be a non-empty list of numbers", values,
-                            f"e.g. {name} = [0.1, 0.2, 0.4]")
-        out.append((name, tuple(float(v) for v in values)))
-    return kind, tuple(out)
 
 
 def _check_points(spec: Spec, src: str) -> None:

@@ -44,22 +44,22 @@ def check(
     """Validate a spec and its model and print what would run."""
     spec = load(spec_path, store=store)
     model = spec.model
+    points = spec.points()
     reactions = Table(title="Reactions", title_justify="left")
     for col in ("name", "reaction", "rate"):
         reactions.add_column(col)
     for row in describe(model):
         reactions.add_row(*row)
     species = ", ".join(f"{s}={v}" for s, v in zip(model.species, model.initial))
-    points = spec.points()
     tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
     console.print(f"[green]ok[/] {spec_path}  (SHA-256 {spec.sha256[:12]})")
     console.print(f"species: {species}")
     console.print(reactions)
-    design = Table(title=f"Design: {spec.design}", title_justify="left")
+    design = Table(title=f"Design: {spec.design.kind}", title_justify="left")
     design.add_column("parameter")
     design.add_column("values")
-    for name, values in spec.vary:
-        design.add_row(name, ", ".join(f"{v:g}" for v in values))
+    for q, name in enumerate(spec.param_names):
+        design.add_row(name, _values(points[:, q]))
     fixed = [(n, v) for n, v in spec.fixed if n not in spec.param_names]
     for name, value in fixed:
         design.add_row(f"[dim]{name}[/]", f"[dim]{value:g} (fixed)[/]")
@@ -72,3 +72,11 @@ def check(
         f"root seed {spec.seed}, event cap {spec.max_events:,}\n"
         f"store {spec.store}"
     )
+
+
+def _values(column) -> str:
+    """A parameter's values: listed when few, else their range and count."""
+    distinct = sorted(set(float(v) for v in column))
+    if len(distinct) <= 8:
+        return ", ".join(f"{v:g}" for v in distinct)
+    return f"{distinct[0]:g} .. {distinct[-1]:g} ({len(distinct):,} distinct values)"
