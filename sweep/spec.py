@@ -112,9 +112,23 @@ def load(path: str | Path, store: str | Path | None = None) -> Spec:
     path = Path(path)
     text = _read(path, str(path), "")
     doc = _parse_toml(text, str(path))
+    model_text = ""
+    if isinstance(doc.get("model"), str):
+        model_text = _read(path.parent / doc["model"], str(path), "model")
+    return from_text(text, path, model_text, store)
+
+
+def from_text(text: str, path: str | Path, model_text: str = "", store: str | Path | None = None) -> Spec:
+    """Validate a spec given as text (plus the text of the model file it names); reads no files.
+
+    ``path`` is used in error messages and to name the model file. A store keeps both texts
+    in its attributes, so ``sweep trace`` rebuilds the exact spec a store was run with.
+    """
+    path = Path(path)
+    doc = _parse_toml(text, str(path))
     src = str(path)
     _unknown(doc, _TOP_KEYS, src, "")
-    model, model_text = _load_model(doc, path)
+    model = _load_model(doc, path, model_text)
     run = _sub(doc, "run", src)
     _unknown(run, _RUN_KEYS, src, "run")
     method = run.get("method", "direct")
@@ -153,17 +167,16 @@ def _parse_toml(text: str, src: str) -> dict:
         raise SpecError(src, "", f"TOML syntax error: {exc}", fix="see https://toml.io for the syntax") from exc
 
 
-def _load_model(doc: Mapping[str, Any], path: Path) -> tuple[Model, str]:
+def _load_model(doc: Mapping[str, Any], path: Path, model_text: str) -> Model:
     src = str(path)
     entry = doc.get("model")
     if entry is None:
         raise SpecError(src, "model", "missing", fix='add model = "my_model.toml" or a [model] table')
     if isinstance(entry, str):
         model_path = path.parent / entry
-        text = _read(model_path, src, "model")
-        return parse_model(_parse_toml(text, str(model_path)), str(model_path)), text
+        return parse_model(_parse_toml(model_text, str(model_path)), str(model_path))
     if isinstance(entry, dict):
-        return parse_model(entry, src, "model."), ""
+        return parse_model(entry, src, "model.")
     raise SpecError(src, "model", "must be a file name or a table", entry)
 
 
