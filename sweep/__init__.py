@@ -14,9 +14,10 @@ from sweep.errors import KernelError, SpecError, StoreError, SweepError
 from sweep.runner import Progress, RunSummary, Started, run
 from sweep.spec import Spec, load
 from sweep.store import open_dataset as open_results
-from sweep.status import StoreStatus, status
+from sweep.status import StoreStatus, status, verify
+from sweep.trace import ReplicateTrace, trace
 
 __all__ = [
     "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
-    "StoreStatus", "SweepError", "load", "open_results", "run", "status",
+    "ReplicateTrace", "StoreStatus", "SweepError", "load", "open_results", "run", "status", "trace", "verify",
 ]

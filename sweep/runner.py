@@ -4,11 +4,24 @@ The client keeps a bounded window of tasks in flight (a sweep of 100,000 tasks n
 holds 100,000 futures), marks a task done only after its worker's write has returned,
 and flushes the completion record in batches; a task whose flag was lost to a crash is
 simply run again and rewrites the same bytes.
+
+What happens at each fault:
+
+- a worker process dies: distributed reschedules its task elsewhere (``allowed-failures``);
+- a task raises: Dask retries it ``TASK_RETRIES`` times, then it is recorded as failed with
+  its error text; the other tasks go on, and a rerun tries it again;
+- a disk error (full, read-only, quota, I/O) on a write: the sweep stops at once, since every
+  other task would fail the same way; what was written and recorded stays valid;
+- Ctrl-C: tasks in flight are dropped (their chunks are not marked done), completions are
+  recorded, and the summary says how to resume.
 """
 
 from __future__ import annotations
 
+import contextlib
+import errno
 import importlib
+import signal
 import time
 import traceback
 from dataclasses import dataclass, field
@@ -18,15 +31,16 @@ from typing import Callable, Iterator
 
 import numpy as np
 
-from sweep import store
+from sweep import lock, specdiff, store
 from sweep.errors import StoreError
 from sweep.model import compile_network, initial_counts, rate_constants
 from sweep.spec import Spec
 from sweep.tasks import Task, make_tasks, n_blocks
-from sweep.worker import TaskInput, TaskResult, run_task, warm_up
+from sweep.worker import TaskInput, run_task, warm_up
 
 FLUSH_SECONDS = 1.0
 TASK_RETRIES = 2
+DISK_ERRNOS = {errno.ENOSPC, errno.EROFS, errno.EDQUOT, errno.EIO, errno.EACCES, errno.EPERM}
 
 
 @dataclass
@@ -64,6 +78,8 @@ class Started:
 
 @dataclass(frozen=True)
 class RunSummary:
+    """What a run did. ``stopped`` says why it ended early ("interrupted" or a disk error)."""
+
     store: Path
     points: int
     tasks_total: int
@@ -75,11 +91,26 @@ class RunSummary:
     seconds: float
     simulating_seconds: float = 0.0
     failed: tuple[FailedTask, ...] = field(default_factory=tuple)
+    stopped: str | None = None
 
     @property
     def events_per_second(self) -> float:
         """Reaction events per wall-second while simulating (after start-up)."""
         return self.events / self.simulating_seconds if self.simulating_seconds > 0 else 0.0
+
+    @property
+    def complete(self) -> bool:
+        return self.stopped is None and not self.failed and self.tasks_run + self.tasks_skipped == self.tasks_total
+
+
+@dataclass
+class _Tally:
+    events: int = 0
+    capped: int = 0
+    numerical: int = 0
+    ran: int = 0
+    failed: list[FailedTask] = field(default_factory=list)
+    stopped: str | None = None
 
 
 def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Task], np.ndarray, bool]:
@@ -88,22 +119,44 @@ def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Tas
     Raises
     ------
     StoreError
-        If the path holds a store of another spec, or something that is not a store.
+        If the path holds a store of another spec (listing what changed), or something
+        that is not a store.
     """
     points = spec.points()
     tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
     blocks = n_blocks(spec.replicates, spec.replicates_per_task)
     path = spec.store
     if store.exists(path) and not fresh:
-        held = store.attributes(path).get("spec_sha256")
-        if held != spec.sha256:
-            raise StoreError(f"{path}: this store holds another sweep (spec SHA-256 {str(held)[:12]}..., "
-                             f"yours {spec.sha256[:12]}...): use another --store, or --fresh to start over")
+        _check_same_sweep(spec)
+        store.remove_partials(path)
         return points, tasks, store.read_done(path), True
-    if path.exists() and not store.exists(path) and (not path.is_dir() or any(path.iterdir())):
-        raise StoreError(f"{path}: exists and is not a results store; choose another --store")
     store.create(path, spec, points, blocks)
     return points, tasks, np.zeros((points.shape[0], blocks), dtype=bool), False
+
+
+def _check_same_sweep(spec: Spec) -> None:
+    attrs = store.attributes(spec.store)
+    if attrs.get("content_sha256") == specdiff.digest(spec.text, spec.model_text):
+        return
+    old = (attrs.get("spec", ""), attrs.get("model", ""))
+    listed = specdiff.changes(old, (spec.text, spec.model_text)) or ["(the spec text differs)"]
+    raise StoreError(f"{spec.store}: holds a sweep made with a different spec, so it cannot be resumed; "
+                     "changed:\n  " + "\n  ".join(listed) +
+                     "\nundo the changes, use another --store, or start over with --fresh")
+
+
+def _claim(spec: Spec, break_lock: bool) -> lock.Holder:
+    """Make sure the store path can hold a store, then take its lock."""
+    path = spec.store
+    if path.exists() and not store.exists(path):
+        entries = [p.name for p in path.iterdir()] if path.is_dir() else ["(a file)"]
+        if [e for e in entries if e != lock.LOCK_NAME]:
+            raise StoreError(f"{path}: exists and is not a results store; choose another --store")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StoreError(f"{path}: cannot create the store folder: {exc.strerror}") from exc
+    return lock.acquire(path, break_lock)
 
 
 def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[TaskInput]:
@@ -122,7 +175,7 @@ def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[T
 
 
 def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None, fresh: bool = False,
-        on_start: Callable[[Started], None] | None = None,
+        break_lock: bool = False, on_start: Callable[[Started], None] | None = None,
         on_progress: Callable[[Progress], None] | None = None) -> RunSummary:
     """Run (or resume) a sweep and return what happened.
 
@@ -136,37 +189,76 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
         Address of an existing Dask scheduler to use instead of a local cluster.
     fresh : bool
         Delete an existing store at ``spec.store`` and start over.
+    break_lock : bool
+        Take the store's lock even when it is held by a process on another host.
     on_start, on_progress : callable, optional
         Called once the cluster is up, and after every finished task.
+
+    Returns
+    -------
+    RunSummary
+        Also when stopped early by Ctrl-C or a disk error (see ``RunSummary.stopped``).
+
+    Raises
+    ------
+    StoreError
+        The store belongs to another spec, is locked, or cannot be written at all.
 
     Example
     -------
     >>> summary = run(load("configs/reporter.toml"), workers=2)
     """
     began = time.perf_counter()
-    points, tasks, done, resumed = prepare_store(spec, fresh)
-    pending = [t for t in tasks if not done[t.point, t.block]]
-    inputs = task_inputs(spec, points, pending)
-    first = next(inputs, None)
-    if first is None:
-        return RunSummary(spec.store, points.shape[0], len(tasks), 0, len(tasks), 0, 0, 0,
-                          time.perf_counter() - began)
-    warm_up(spec.method, first.network, first.rates, first.x0, first.times)
-    backend = importlib.import_module(f"sweep.execute.{'scheduler' if scheduler else 'local'}")
-    with backend.connect(address=scheduler, workers=workers) as client:
-        n_workers = len(client.scheduler_info(n_workers=-1)["workers"])
-        # every worker imports and loads the cached kernel at once, before the clock starts
-        client.run(warm_up, first.method, first.network, first.rates, first.x0, first.times)
-        if on_start:
-            on_start(Started(client.dashboard_link, n_workers, len(pending), len(tasks), resumed))
-        streaming = time.perf_counter()
-        totals = _stream(client, _chain(first, inputs), max(n_workers, 1), spec.store, done,
-                         Progress(len(tasks) - len(pending), len(tasks)), on_progress)
-        simulating = time.perf_counter() - streaming
-    events, capped, numerical, failed = totals
-    return RunSummary(spec.store, points.shape[0], len(tasks), len(pending) - len(failed),
-                      len(tasks) - len(pending), events, capped, numerical,
-                      time.perf_counter() - began, simulating, tuple(failed))
+    holder = _claim(spec, break_lock)
+    try:
+        try:
+            points, tasks, done, resumed = prepare_store(spec, fresh)
+        except OSError as exc:
+            raise StoreError(f"{spec.store}: cannot write the store: {exc}") from exc
+        pending = [t for t in tasks if not done[t.point, t.block]]
+        tally = _Tally()
+        simulating = 0.0
+        inputs = task_inputs(spec, points, pending)
+        first = next(inputs, None)
+        if first is not None:
+            warm_up(spec.method, first.network, first.rates, first.x0, first.times)
+            backend = importlib.import_module(f"sweep.execute.{'scheduler' if scheduler else 'local'}")
+            with contextlib.ExitStack() as cluster:
+                with _sigint_ignored():
+                    client = cluster.enter_context(backend.connect(address=scheduler, workers=workers))
+                n_workers = len(client.scheduler_info(n_workers=-1)["workers"])
+                # every worker imports and loads the cached kernel at once, before the clock starts
+                client.run(warm_up, first.method, first.network, first.rates, first.x0, first.times)
+                if on_start:
+                    on_start(Started(client.dashboard_link, n_workers, len(pending), len(tasks), resumed))
+                streaming = time.perf_counter()
+                _stream(client, _chain(first, inputs), max(n_workers, 1), spec.store, done,
+                        Progress(len(tasks) - len(pending), len(tasks)), on_progress, tally)
+                simulating = time.perf_counter() - streaming
+        return RunSummary(spec.store, points.shape[0], len(tasks), tally.ran, len(tasks) - len(pending),
+                          tally.events, tally.capped, tally.numerical, time.perf_counter() - began,
+                          simulating, tuple(tally.failed), tally.stopped)
+    finally:
+        lock.release(spec.store, holder)
+
+
+@contextlib.contextmanager
+def _sigint_ignored():
+    """Start worker processes with SIGINT ignored, so Ctrl-C reaches only this client.
+
+    A terminal sends SIGINT to the whole foreground process group; the client then stops
+    the workers itself. An ignored signal stays ignored across exec, and Python keeps an
+    inherited "ignore" instead of installing its KeyboardInterrupt handler.
+    """
+    try:
+        previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    except ValueError:  # not the main thread: nothing to shield
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def _chain(first, rest):
@@ -175,15 +267,13 @@ def _chain(first, rest):
 
 
 def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, done: np.ndarray,
-            progress: Progress, on_progress) -> tuple[int, int, int, list[FailedTask]]:
+            progress: Progress, on_progress, tally: _Tally) -> None:
     """Keep a bounded window of tasks in flight and record each completion."""
     from distributed import as_completed
 
     window = max(4 * n_workers, 16)
     refill = window // 2
     began, last_flush, dirty = time.perf_counter(), time.perf_counter(), False
-    capped = numerical = 0
-    failed: list[FailedTask] = []
     owner: dict[str, tuple[int, int]] = {}  # future key -> (point, block), to name failures
 
     def submit(batch):
@@ -196,14 +286,20 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
         for future, result in flights:
             point, block = owner.pop(future.key)
             if future.status == "error":
-                failed.append(FailedTask(point, block, _error_text(result)))
+                exc = result[1]  # as_completed gives (type, exception, traceback) for errors
+                if _is_disk_error(exc):
+                    tally.stopped = f"cannot write to the store: {exc}"
+                    break
+                tally.failed.append(FailedTask(point, block, _error_text(exc)))
                 progress.failed += 1
             else:
-                done[result.point, result.block] = dirty = True
+                done[point, block] = dirty = True
                 progress.done += 1
                 progress.events += result.events
-                capped += result.capped
-                numerical += result.failed
+                tally.events += result.events
+                tally.capped += result.capped
+                tally.numerical += result.failed
+                tally.ran += 1
             if flights.count() <= window - refill and (batch := list(islice(inputs, refill))):
                 flights.update(submit(batch))
             if dirty and time.perf_counter() - last_flush >= FLUSH_SECONDS:
@@ -212,10 +308,29 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
             progress.elapsed = time.perf_counter() - began
             if on_progress:
                 on_progress(progress)
+    except KeyboardInterrupt:
+        tally.stopped = "interrupted"
     finally:
+        in_flight = list(flights.futures)
+        if in_flight:
+            client.cancel(in_flight)  # their chunks may be half-way; they are not marked done
+        _record(path, done, tally)
+
+
+def _record(path: Path, done: np.ndarray, tally: _Tally) -> None:
+    """Flush the completion record and the failures; a disk error here only costs re-runs."""
+    try:
         store.write_done(path, done)
+        store.record_failures(path, [{"point": f.point, "block": f.block, "error": f.error} for f in tally.failed],
+                              done)
         store.finish_run(path)
-    return progress.events, capped, numerical, failed
+    except OSError as exc:
+        note = f"could not record the last completions ({exc.strerror or exc}); those tasks will run again"
+        tally.stopped = f"{tally.stopped}; {note}" if tally.stopped else note
+
+
+def _is_disk_error(exc: BaseException) -> bool:
+    return isinstance(exc, OSError) and exc.errno in DISK_ERRNOS
 
 
 def _error_text(exc: BaseException) -> str:

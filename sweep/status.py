@@ -1,4 +1,5 @@
-"""Summarise a results store: tasks done, replicates stopped early, the spec it holds."""
+"""Summarise a results store: tasks done, failed and pending, replicates stopped early,
+the spec it holds, who is writing it; and verify the chunks of tasks marked done."""
 
 from __future__ import annotations
 
@@ -8,7 +9,15 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from sweep import store
+from sweep import lock, store
+
+
+@dataclass(frozen=True)
+class FailedPoint:
+    point: int
+    block: int
+    params: dict[str, float]
+    error: str
 
 
 @dataclass(frozen=True)
@@ -18,6 +27,7 @@ class StoreStatus:
     replicates: int
     tasks_total: int
     tasks_done: int
+    failed: tuple[FailedPoint, ...]
     capped: int
     numerical: int
     method: str
@@ -28,9 +38,12 @@ class StoreStatus:
     last_run: str | None
     param_names: tuple[str, ...]
     species: tuple[str, ...]
+    writer: lock.Holder | None
+    writer_alive: bool | None
 
     @property
     def tasks_pending(self) -> int:
+        """Tasks not done, failed ones included."""
         return self.tasks_total - self.tasks_done
 
 
@@ -46,11 +59,45 @@ def status(path: str | Path) -> StoreStatus:
     attrs = store.attributes(path)
     g = zarr.open_group(path, mode="r")
     done = g["done"][:]
-    status_codes = g["status"][:]
+    codes = g["status"][:]
+    names = tuple(str(v) for v in g["param"][:])
+    params = g["params"][:]
+    failed = tuple(FailedPoint(f["point"], f["block"], dict(zip(names, map(float, params[f["point"]]))), f["error"])
+                   for f in attrs.get("failed_tasks", []) if not done[f["point"], f["block"]])
+    writer = lock.read(path)
     return StoreStatus(
-        path=path, points=done.shape[0], replicates=status_codes.shape[1], tasks_total=done.size,
-        tasks_done=int(done.sum()), capped=int(np.count_nonzero(status_codes == 1)),
-        numerical=int(np.count_nonzero(status_codes == 2)), method=attrs["method"],
-        root_seed=attrs["root_seed"], spec_sha256=attrs["spec_sha256"], spec_path=attrs.get("spec_path", ""),
-        created=attrs.get("created", ""), last_run=attrs.get("last_run"),
-        param_names=tuple(str(v) for v in g["param"][:]), species=tuple(str(v) for v in g["species"][:]))
+        path=path, points=done.shape[0], replicates=codes.shape[1], tasks_total=done.size,
+        tasks_done=int(done.sum()), failed=failed, capped=int(np.count_nonzero(codes == 1)),
+        numerical=int(np.count_nonzero(codes == 2)), method=attrs["method"], root_seed=attrs["root_seed"],
+        spec_sha256=attrs["spec_sha256"], spec_path=attrs.get("spec_path", ""), created=attrs.get("created", ""),
+        last_run=attrs.get("last_run"), param_names=names, species=tuple(str(v) for v in g["species"][:]),
+        writer=writer, writer_alive=None if writer is None else (not lock.is_stale(writer)
+                                                                 if lock.is_stale(writer) is not None else None))
+
+
+def verify(path: str | Path, repair: bool = True) -> list[tuple[int, int, str]]:
+    """Re-read every chunk of every task marked done; unmark the bad ones so a rerun repairs them.
+
+    Returns
+    -------
+    list of (point, block, problem)
+
+    Raises
+    ------
+    StoreError
+        If ``path`` holds no results store, or (with ``repair``) another run holds its lock.
+    """
+    path = Path(path)
+    attrs = store.attributes(path)
+    done = store.read_done(path)
+    problems = store.verify(path, done, int(attrs["replicates_per_task"]))
+    if problems and repair:
+        me = lock.acquire(path)
+        try:
+            for point, block, _ in problems:
+                done[point, block] = False
+            store.write_done(path, done)
+            store.consolidate(path)
+        finally:
+            lock.release(path, me)
+    return problems

@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import importlib.metadata
+import os
 import shutil
 import warnings
 from pathlib import Path
@@ -34,7 +35,9 @@ import numpy as np
 import zarr
 from zarr.codecs import BloscCodec
 
+from sweep import specdiff
 from sweep.errors import StoreError
+from sweep.lock import LOCK_NAME
 
 if TYPE_CHECKING:
     import xarray as xr
@@ -60,18 +63,21 @@ def versions() -> dict[str, str]:
 def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     """Create the whole layout (shapes, chunks, attributes) before any task runs.
 
-    Overwrites whatever is at ``path``; callers decide whether that is allowed.
+    Deletes whatever else is at ``path`` (but not the lock); callers decide whether that
+    is allowed.
     """
-    if path.exists():
-        shutil.rmtree(path)
+    _clear(path)
     n_p, n_r, n_t, n_s = points.shape[0], spec.replicates, len(spec.times), len(spec.model.species)
     rb = spec.replicates_per_task
-    g = zarr.open_group(path, mode="w", zarr_format=3)
+    g = zarr.open_group(path, mode="a", zarr_format=3)
     g.attrs.update(_attributes(spec))
+    # every written chunk exists on disk, even one equal to the fill value, so that
+    # `sweep status --verify` can tell a lost chunk from a block of failed replicates
+    data = {"write_empty_chunks": True}
     _array(g, "counts", (n_p, n_r, n_t, n_s), (1, rb, n_t, n_s), "int32", -1,
-           ("point", "replicate", "time", "species"))
-    _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"))
-    _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"))
+           ("point", "replicate", "time", "species"), data)
+    _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"), data)
+    _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"), data)
     done = _array(g, "done", (n_p, n_blocks), (n_p, n_blocks), "bool", False, ("point", "block"))
     done[:] = False
     params = _array(g, "params", (n_p, points.shape[1]), (n_p, max(points.shape[1], 1)), "float64",
@@ -86,16 +92,32 @@ def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     consolidate(path)
 
 
+def _clear(path: Path) -> None:
+    path.mkdir(parents=True, exist_ok=True)
+    for child in path.iterdir():
+        if child.name == LOCK_NAME:
+            continue
+        if child.is_dir() and not child.is_symlink():
+            shutil.rmtree(child)
+        else:
+            child.unlink()
+
+
 def consolidate(path: Path) -> None:
-    """Consolidate metadata so a plain ``xarray.open_zarr(path)`` opens without warnings."""
+    """Consolidate metadata so a plain ``xarray.open_zarr(path)`` opens without warnings.
+
+    zarr warns about the lock file while listing the hierarchy; it is ours, so that
+    warning is dropped here.
+    """
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="Consolidated metadata is currently not part")
+        warnings.filterwarnings("ignore", message=f"Object at {LOCK_NAME} is not recognized")
         zarr.consolidate_metadata(path)
 
 
-def _array(g, name, shape, chunks, dtype, fill, dims):
+def _array(g, name, shape, chunks, dtype, fill, dims, config=None):
     return g.create_array(name, shape=shape, chunks=chunks, dtype=dtype, fill_value=fill,
-                          dimension_names=dims, compressors=_COMPRESSORS)
+                          dimension_names=dims, compressors=_COMPRESSORS, config=config)
 
 
 def _attributes(spec: Spec) -> dict:
@@ -105,6 +127,7 @@ def _attributes(spec: Spec) -> dict:
         "spec_path": str(spec.path),
         "model": spec.model_text,
         "spec_sha256": spec.sha256,
+        "content_sha256": specdiff.digest(spec.text, spec.model_text),
         "method": spec.method,
         "root_seed": spec.seed,
         "replicates_per_task": spec.replicates_per_task,
@@ -130,12 +153,70 @@ def attributes(path: Path) -> dict:
         raise StoreError(f"{path}: no results store here (run `sweep run SPEC --store {path}` first)") from exc
 
 
+DATA_ARRAYS = ("counts", "status", "events")
+
+
 def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult) -> None:
-    """Write one task's replicates into the chunks it alone owns. Runs on a worker."""
+    """Write one task's replicates into the chunks it alone owns, durably. Runs on a worker.
+
+    zarr writes each chunk to a temporary file and renames it into place; the fsync of
+    the files and of their directories afterwards makes the data survive a crash of the
+    machine, not only of the process, before the client marks the task done.
+    """
     g = zarr.open_group(path, mode="r+")
-    g["counts"][point, start:stop] = result.counts
-    g["status"][point, start:stop] = result.status
-    g["events"][point, start:stop] = result.events
+    for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)):
+        array = g[name]
+        array[point, start:stop] = values
+        _fsync_chunk(Path(path), name, array, point, start)
+
+
+def _chunk_file(path: Path, name: str, array: zarr.Array, point: int, start: int) -> Path:
+    coords = (point, start // array.chunks[1]) + (0,) * (array.ndim - 2)
+    return path / name / array.metadata.encode_chunk_key(coords)
+
+
+def _fsync_chunk(path: Path, name: str, array: zarr.Array, point: int, start: int) -> None:
+    target = _chunk_file(path, name, array, point, start)
+    for node in (target, *target.parents):
+        fd = os.open(node, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+        if node == path:
+            break
+
+
+def verify(path: Path, done: np.ndarray, replicates_per_task: int) -> list[tuple[int, int, str]]:
+    """Re-read every chunk of every task marked done; return (point, block, problem) for bad ones."""
+    g = zarr.open_group(path, mode="r")
+    arrays = {name: g[name] for name in DATA_ARRAYS}
+    problems = []
+    for point, block in zip(*np.nonzero(done)):
+        start = int(block) * replicates_per_task
+        for name, array in arrays.items():
+            if not _chunk_file(path, name, array, int(point), start).is_file():
+                problems.append((int(point), int(block), f"{name} chunk missing"))
+                break
+            try:
+                array[int(point), start:start + replicates_per_task]
+            except Exception as exc:  # any decode failure means the chunk is unusable
+                problems.append((int(point), int(block), f"{name} chunk unreadable: {exc}"))
+                break
+    return problems
+
+
+def remove_partials(path: Path) -> int:
+    """Delete temporary chunk files (``*.partial``) left by writers killed mid-write.
+
+    zarr writes a chunk to ``<key>.<uuid>.partial`` and renames it; a SIGKILL between the
+    two leaves the temporary file, which readers ignore but listings show.
+    """
+    removed = 0
+    for leftover in path.rglob("*.partial"):
+        leftover.unlink(missing_ok=True)
+        removed += 1
+    return removed
 
 
 def read_done(path: Path) -> np.ndarray:
@@ -146,6 +227,19 @@ def read_done(path: Path) -> np.ndarray:
 def write_done(path: Path, done: np.ndarray) -> None:
     """Replace the completion record (only the client calls this: a single writer)."""
     zarr.open_array(path, path="done", mode="r+")[:] = done
+
+
+def record_failures(path: Path, failed: list[dict], done: np.ndarray) -> None:
+    """Keep the failed tasks (point, block, error) in the attributes.
+
+    This run's failures replace earlier ones of the same task; earlier failures of tasks
+    that are still not done (e.g. not reached before an interruption) are kept.
+    """
+    g = zarr.open_group(path, mode="r+", use_consolidated=False)
+    fresh = {(f["point"], f["block"]) for f in failed}
+    kept = [f for f in g.attrs.get("failed_tasks", [])
+            if (f["point"], f["block"]) not in fresh and not done[f["point"], f["block"]]]
+    g.attrs["failed_tasks"] = sorted(kept + failed, key=lambda f: (f["point"], f["block"]))
 
 
 def finish_run(path: Path, **attrs) -> None:

@@ -1,13 +1,14 @@
 """The ``sweep`` command line: a thin typer layer over the public API in ``sweep``.
 
-Exit codes: 0 ok, 1 some tasks failed, 2 bad input (spec, model, store or options).
+Exit codes: 0 ok, 1 some tasks failed or the store could not be written, 2 bad input (spec,
+model, store or options), 130 interrupted by Ctrl-C.
 """
 
 from __future__ import annotations
 
 import typer
 
-from sweep.cli import bench, inspect, running, setup
+from sweep.cli import bench, inspect, running, setup, tracing
 
 app = typer.Typer(
     name="sweep",
@@ -20,6 +21,7 @@ app.command("init")(setup.init)
 app.command("check")(setup.check)
 app.command("run")(running.run)
 app.command("status")(inspect.status)
+app.command("trace")(tracing.trace)
 app.command("bench")(bench.bench)
 
 

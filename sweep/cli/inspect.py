@@ -1,4 +1,4 @@
-"""`sweep status`: how far a store has got, and what it holds."""
+"""`sweep status`: how far a store has got, what failed, and whether its chunks are sound."""
 
 from __future__ import annotations
 
@@ -9,20 +9,23 @@ import typer
 from rich.table import Table
 
 import sweep
-from sweep.cli.common import console, exits_on_errors
+from sweep.cli.common import EXIT_FAILED_TASKS, console, exits_on_errors
+from sweep.status import verify as verify_store
 
 
 @exits_on_errors
 def status(
     store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
+    verify: Annotated[bool, typer.Option("--verify", help="Re-read every chunk marked done; unmark bad ones so a rerun repairs them.")] = False,
 ) -> None:
-    """Show done/pending tasks, replicates stopped early, and the spec the store holds."""
+    """Show done/failed/pending tasks, replicates stopped early, and the spec the store holds."""
     st = sweep.status(store)
     table = Table(title=f"{st.path}", show_header=False, title_justify="left")
     table.add_column(style="bold")
     table.add_column()
     pct = 100.0 * st.tasks_done / st.tasks_total if st.tasks_total else 100.0
-    table.add_row("tasks", f"{st.tasks_done:,} done, {st.tasks_pending:,} pending, of {st.tasks_total:,} ({pct:.1f}%)")
+    table.add_row("tasks", f"{st.tasks_done:,} done, {len(st.failed):,} failed, "
+                           f"{st.tasks_pending - len(st.failed):,} pending, of {st.tasks_total:,} ({pct:.1f}% done)")
     table.add_row("points x replicates", f"{st.points:,} x {st.replicates:,}")
     table.add_row("stopped at event cap", f"{st.capped:,} replicates")
     table.add_row("numerical failures", f"{st.numerical:,} replicates")
@@ -31,4 +34,22 @@ def status(
     table.add_row("varied parameters", ", ".join(st.param_names) or "(none)")
     table.add_row("spec", f"{st.spec_path} (SHA-256 {st.spec_sha256[:12]})")
     table.add_row("created, last run", f"{st.created}, {st.last_run or 'never'}")
+    if st.writer is not None:
+        state = {True: "running now", False: "stale (that process is gone)", None: "on another host"}[st.writer_alive]
+        table.add_row("lock", f"{st.writer.describe()}: {state}")
     console.print(table)
+    if st.failed:
+        failed = Table(title="Failed tasks (a rerun tries them again)", title_justify="left")
+        for col in ("point", "block", *st.param_names, "error"):
+            failed.add_column(col)
+        for f in st.failed:
+            failed.add_row(str(f.point), str(f.block), *(f"{f.params[n]:g}" for n in st.param_names), f.error)
+        console.print(failed)
+    if verify:
+        problems = verify_store(store)
+        if problems:
+            for point, block, problem in problems:
+                console.print(f"[red]bad[/] point {point} block {block}: {problem}; marked not done")
+            console.print(f"{len(problems)} task(s) will be recomputed by the next `sweep run`")
+            raise typer.Exit(EXIT_FAILED_TASKS)
+        console.print(f"verified: every chunk of the {st.tasks_done:,} done tasks is present and readable")

@@ -15,6 +15,8 @@ import sweep
 from sweep import store as store_mod
 from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, si
 
+EXIT_INTERRUPTED = 130  # the shell's convention for a run stopped by SIGINT
+
 
 @exits_on_errors
 def run(
@@ -24,9 +26,11 @@ def run(
     scheduler: Annotated[str | None, typer.Option(help="Address of an existing Dask scheduler, e.g. tcp://10.0.0.5:8786.")] = None,
     fresh: Annotated[bool, typer.Option("--fresh", help="Delete the existing store and start over.")] = False,
     yes: Annotated[bool, typer.Option("--yes", "-y", help="Do not ask before deleting with --fresh.")] = False,
+    break_lock: Annotated[bool, typer.Option("--break-lock", help="Take the store's lock from a run on another host that is known to be dead.")] = False,
 ) -> None:
     """Run the sweep; run it again on the same store and it resumes where it stopped."""
     spec = sweep.load(spec_path, store=store)
+    resume = _resume_command(spec_path, spec.store, workers, scheduler)
     if fresh and store_mod.exists(spec.store) and not yes:
         if not sys.stdin.isatty():
             errors.print(f"[bold red]error:[/] --fresh would delete {spec.store}; add --yes to confirm")
@@ -52,27 +56,35 @@ def run(
         bar.update(state["task"], completed=p.done, rate=si(p.events_per_second))
 
     try:
-        summary = sweep.run(spec, workers=workers, scheduler=scheduler, fresh=fresh,
+        summary = sweep.run(spec, workers=workers, scheduler=scheduler, fresh=fresh, break_lock=break_lock,
                             on_start=on_start, on_progress=on_progress)
+    except KeyboardInterrupt:
+        bar.stop()
+        errors.print("interrupted before any task ran; nothing was lost")
+        console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
+        raise typer.Exit(EXIT_INTERRUPTED) from None
     finally:
         bar.stop()
     _report(summary, spec)
-    if summary.failed:
-        raise typer.Exit(EXIT_FAILED_TASKS)
+    if summary.stopped or summary.failed:
+        console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
+        raise typer.Exit(EXIT_INTERRUPTED if summary.stopped == "interrupted" else EXIT_FAILED_TASKS)
 
 
 def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
-    if summary.tasks_run == 0 and not summary.failed:
+    if summary.tasks_run == 0 and summary.complete:
         console.print(f"nothing to do: all {summary.tasks_total:,} tasks of {summary.store} are done")
         return
-    table = Table(title="Sweep finished" if not summary.failed else "Sweep finished with failures",
-                  show_header=False, title_justify="left")
+    title = "Sweep finished" if summary.complete else (
+        f"Sweep stopped: {summary.stopped}" if summary.stopped else "Sweep finished with failures")
+    table = Table(title=title, show_header=False, title_justify="left")
     table.add_column(style="bold")
     table.add_column()
     table.add_row("store", str(summary.store))
     table.add_row("points x replicates", f"{summary.points:,} x {spec.replicates:,}")
+    left = summary.tasks_total - summary.tasks_run - summary.tasks_skipped
     table.add_row("tasks", f"{summary.tasks_run:,} run, {summary.tasks_skipped:,} already done, "
-                           f"{len(summary.failed):,} failed, of {summary.tasks_total:,}")
+                           f"{len(summary.failed):,} failed, {left:,} left, of {summary.tasks_total:,}")
     table.add_row("reaction events", f"{summary.events:,}")
     table.add_row("wall time", f"{duration(summary.seconds)} ({duration(summary.simulating_seconds)} simulating)")
     table.add_row("events per second", f"{si(summary.events_per_second)} while simulating, "
@@ -83,10 +95,16 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     for failure in summary.failed[:20]:
         errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {failure.error}",
                      highlight=False)
-    if summary.failed:
-        errors.print(f"rerun to retry the failed tasks: {_resume_command(spec)}", highlight=False)
-    console.print(f"open it with: [bold]xarray.open_zarr({str(summary.store)!r})[/]", highlight=False)
+    if len(summary.failed) > 20:
+        errors.print(f"... and {len(summary.failed) - 20} more; `sweep status {summary.store}` lists them all")
+    if summary.complete:
+        console.print(f"open it with: [bold]xarray.open_zarr({str(summary.store)!r})[/]", highlight=False)
 
 
-def _resume_command(spec: sweep.Spec) -> str:
-    return f"sweep run {shlex.quote(str(spec.path))} --store {shlex.quote(str(spec.store))}"
+def _resume_command(spec_path: Path, store: Path, workers: int | None, scheduler: str | None) -> str:
+    words = ["sweep", "run", str(spec_path), "--store", str(store)]
+    if workers:
+        words += ["--workers", str(workers)]
+    if scheduler:
+        words += ["--scheduler", scheduler]
+    return shlex.join(words)

@@ -17,6 +17,8 @@ from distributed import Client, LocalCluster
 def connect(workers: int | None = None, **_: object) -> Iterator[Client]:
     n = workers or os.cpu_count() or 1
     with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                      dashboard_address="127.0.0.1:0", silence_logs=logging.ERROR) as cluster:
+                      dashboard_address="127.0.0.1:0",
+                      # task errors are reported by the client, once; not by every worker too
+                      silence_logs=logging.CRITICAL) as cluster:
         with Client(cluster) as client:
             yield client

@@ -34,7 +34,7 @@ def test_init_check_run_status(tmp_path, monkeypatch):
 
     result = runner.invoke(app, ["status", "out.zarr"])
     assert result.exit_code == 0, result.output
-    assert re.search(r"12 done, 0 pending, of 12", result.output)
+    assert re.search(r"12 done, 0 failed, 0 pending, of 12", result.output)
 
 
 def test_fresh_needs_confirmation_without_a_terminal(tmp_path, monkeypatch):

@@ -121,7 +121,7 @@ def test_store_of_another_spec_is_refused(reference, spec_file):
     _, ref = reference
     other = sweep.load(spec_file(BODY.format(per_task=8).replace("seed = 7", "seed = 8"), model=DIMER),
                        store=ref.store)
-    with pytest.raises(StoreError, match="another sweep"):
+    with pytest.raises(StoreError, match=r"different spec(.|\n)*run.seed: 7 -> 8"):
         sweep.run(other, workers=1)
 
 

@@ -1,0 +1,55 @@
+"""`sweep trace`: recompute one replicate exactly, with its event log."""
+
+from __future__ import annotations
+
+import csv
+from pathlib import Path
+from typing import Annotated
+
+import typer
+from rich.table import Table
+
+from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors
+from sweep.trace import trace as trace_replicate
+
+_STATUS = {0: "finished", 1: "stopped at the event cap", 2: "numerical failure"}
+
+
+@exits_on_errors
+def trace(
+    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
+    point: Annotated[int, typer.Option(help="Parameter point index (0-based).")],
+    replicate: Annotated[int, typer.Option(help="Replicate index within the point (0-based).")],
+    output: Annotated[Path | None, typer.Option(help="Write the whole event log to this CSV file.")] = None,
+    show: Annotated[int, typer.Option(min=0, help="Events to print.")] = 20,
+) -> None:
+    """Recompute one replicate from its seed, show its event log, and check it against the store."""
+    tr = trace_replicate(store, point, replicate)
+    params = ", ".join(f"{k}={v:g}" for k, v in tr.params.items()) or "(no varied parameters)"
+    console.print(f"point {tr.point} ({params}), replicate {tr.replicate}: {tr.events:,} events, "
+                  f"{_STATUS.get(tr.status, tr.status)}")
+    table = Table(title=f"First {min(show, tr.events)} of {tr.events:,} events", title_justify="left")
+    for col in ("#", "time", "reaction", *tr.species):
+        table.add_column(col, justify="right" if col != "reaction" else "left")
+    for i in range(min(show, tr.events)):
+        table.add_row(str(i + 1), f"{tr.times[i]:.6g}", tr.reactions[tr.fired[i]], *map(str, tr.states[i]))
+    console.print(table)
+    if output is not None:
+        _write_csv(output, tr)
+        console.print(f"wrote {tr.events:,} events to {output}")
+    if tr.matches_store is None:
+        console.print("not compared: this replicate's task is not done in the store yet")
+    elif tr.matches_store:
+        console.print(f"[green]matches the store[/]: all {tr.counts.size:,} sampled counts are identical")
+    else:
+        differ = int((tr.counts != tr.stored_counts).sum())
+        errors.print(f"[bold red]differs from the store[/] in {differ:,} of {tr.counts.size:,} sampled counts")
+        raise typer.Exit(EXIT_FAILED_TASKS)
+
+
+def _write_csv(path: Path, tr) -> None:
+    with path.open("w", newline="", encoding="utf-8") as f:
+        out = csv.writer(f)
+        out.writerow(["event", "time", "reaction", *tr.species])
+        for i in range(tr.events):
+            out.writerow([i + 1, repr(float(tr.times[i])), tr.reactions[tr.fired[i]], *tr.states[i].tolist()])

@@ -1,0 +1,66 @@
+"""What changed between the spec a store was made with and the spec given now.
+
+Resuming needs the same sweep. Two specs are the same sweep when their parsed contents
+are equal apart from ``run.store``: comments, spacing, key order and the store's location
+are safe to change by construction; every other change alters which numbers land where.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import tomllib
+from typing import Any
+
+_IGNORED = ("run.store",)
+
+
+def content(spec_text: str, model_text: str) -> dict[str, Any]:
+    """Flattened dotted keys of the spec (and of its model file under ``model file.``)."""
+    flat = _flatten(tomllib.loads(spec_text))
+    if model_text:
+        flat.update(_flatten(tomllib.loads(model_text), "model file."))
+    for key in _IGNORED:
+        flat.pop(key, None)
+    return flat
+
+
+def digest(spec_text: str, model_text: str) -> str:
+    """SHA-256 of the canonical content: equal digests mean a resume is safe."""
+    canonical = json.dumps(content(spec_text, model_text), sort_keys=True, default=str)
+    return hashlib.sha256(canonical.encode()).hexdigest()
+
+
+def changes(old: tuple[str, str], new: tuple[str, str]) -> list[str]:
+    """Readable list of changes from ``old`` to ``new`` (each a (spec text, model text) pair).
+
+    Example
+    -------
+    >>> changes(("[run]\\nreplicates = 100", ""), ("[run]\\nreplicates = 200", ""))
+    ['run.replicates: 100 -> 200']
+    """
+    a, b = content(*old), content(*new)
+    out = []
+    for key in sorted(set(a) | set(b)):
+        if key not in b:
+            out.append(f"{key}: removed (was {_show(a[key])})")
+        elif key not in a:
+            out.append(f"{key}: added ({_show(b[key])})")
+        elif a[key] != b[key]:
+            out.append(f"{key}: {_show(a[key])} -> {_show(b[key])}")
+    return out
+
+
+def _flatten(doc: dict, prefix: str = "") -> dict[str, Any]:
+    flat: dict[str, Any] = {}
+    for key, value in doc.items():
+        if isinstance(value, dict):
+            flat.update(_flatten(value, f"{prefix}{key}."))
+        else:
+            flat[f"{prefix}{key}"] = value
+    return flat
+
+
+def _show(value: Any) -> str:
+    text = json.dumps(value, default=str)
+    return text if len(text) <= 60 else text[:57] + "..."
