@@ -17,7 +17,22 @@ from kernels.network import KernelResult, Network, Trace
 
 METHODS: dict[str, str] = {
     "direct": "kernels.direct",
+    "nrm": "kernels.nrm",
+    "cle": "kernels.cle",
+    "ode": "kernels.ode",
 }
+
+
+# Options a method takes as keyword arguments of ``simulate``, from a spec's [run.options]:
+# name -> "positive" (a number > 0), "fraction" (0 < x < 1) or a tuple of allowed strings.
+OPTIONS: dict[str, dict[str, str | tuple[str, ...]]] = {
+    "cle": {"dt": "positive"},
+    "tau_leap": {"epsilon": "fraction"},
+    "ode": {"ode_method": ("LSODA", "BDF"), "rtol": "fraction", "atol": "positive"},
+}
+
+# Methods whose trajectory does not depend on the seed: one replicate per point.
+DETERMINISTIC: frozenset[str] = frozenset({"ode"})
 
 
 def get(method: str) -> ModuleType:
@@ -31,4 +46,4 @@ def get(method: str) -> ModuleType:
     return importlib.import_module(METHODS[method])
 
 
-__all__ = ["METHODS", "KernelResult", "Network", "Trace", "get"]
+__all__ = ["DETERMINISTIC", "METHODS", "OPTIONS", "KernelResult", "Network", "Trace", "get"]

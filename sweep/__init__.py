@@ -10,7 +10,10 @@ The public Python API; the ``sweep`` command line is a thin layer over it::
 
 from __future__ import annotations
 
+from sweep.analysis.options import AnalysisOptions, Threshold
+from sweep.analysis.report import AnalysisResult, analyze, open_analysis
 from sweep.errors import KernelError, SpecError, StoreError, SweepError
+from sweep.export import ExportSummary, export
 from sweep.runner import Progress, RunSummary, Started, run
 from sweep.spec import Spec, load
 from sweep.store import open_dataset as open_results
@@ -18,6 +21,7 @@ from sweep.status import StoreStatus, status, verify
 from sweep.trace import ReplicateTrace, trace
 
 __all__ = [
+    "AnalysisOptions", "AnalysisResult", "ExportSummary", "Threshold", "analyze", "export", "open_analysis",
     "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
     "ReplicateTrace", "StoreStatus", "SweepError", "load", "open_results", "run", "status", "trace", "verify",
 ]

@@ -136,10 +136,11 @@ def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Tas
 
 def _check_same_sweep(spec: Spec) -> None:
     attrs = store.attributes(spec.store)
-    if attrs.get("content_sha256") == specdiff.digest(spec.text, spec.model_text):
+    if attrs.get("content_sha256") == spec.content_sha256:
         return
-    old = (attrs.get("spec", ""), attrs.get("model", ""))
-    listed = specdiff.changes(old, (spec.text, spec.model_text)) or ["(the spec text differs)"]
+    old = (attrs.get("spec", ""), attrs.get("model", ""), attrs.get("design_file_sha256", ""))
+    new = (spec.text, spec.model_text, spec.design.option("file_sha256") or "")
+    listed = specdiff.changes(old, new) or ["(the spec text differs)"]
     raise StoreError(f"{spec.store}: holds a sweep made with a different spec, so it cannot be resumed; "
                      "changed:\n  " + "\n  ".join(listed) +
                      "\nundo the changes, use another --store, or start over with --fresh")
@@ -171,7 +172,7 @@ def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[T
             rates, x0 = rate_constants(spec.model, values), initial_counts(spec.model, values)
             cached_point = t.point
         yield TaskInput(path, spec.method, network, rates, x0, times, spec.seed, t.point, t.block,
-                        t.start, t.stop, spec.max_events)
+                        t.start, t.stop, spec.max_events, spec.options)
 
 
 def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None, fresh: bool = False,
@@ -221,14 +222,14 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
         inputs = task_inputs(spec, points, pending)
         first = next(inputs, None)
         if first is not None:
-            warm_up(spec.method, first.network, first.rates, first.x0, first.times)
+            warm_up(first)
             backend = importlib.import_module(f"sweep.execute.{'scheduler' if scheduler else 'local'}")
             with contextlib.ExitStack() as cluster:
                 with _sigint_ignored():
                     client = cluster.enter_context(backend.connect(address=scheduler, workers=workers))
                 n_workers = len(client.scheduler_info(n_workers=-1)["workers"])
                 # every worker imports and loads the cached kernel at once, before the clock starts
-                client.run(warm_up, first.method, first.network, first.rates, first.x0, first.times)
+                client.run(warm_up, first)
                 if on_start:
                     on_start(Started(client.dashboard_link, n_workers, len(pending), len(tasks), resumed))
                 streaming = time.perf_counter()

@@ -23,13 +23,17 @@ Layout of a spec::
     g_p = 0.02
 
     [design]
-    kind = "grid"
+    kind = "grid"                     # or lhs, sobol, saltelli, table (see sweep.design)
     [design.vary]                     # full grid over these explicit values
     k_tx = [0.05, 0.1, 0.2]
+
+    [derived]                         # parameters computed at each point from others
+    k_off = "k_on * Kd"               # arithmetic only (see sweep.expr)
 """
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import tomllib
 from dataclasses import dataclass
@@ -40,6 +44,8 @@ import numpy as np
 
 import kernels
 from sweep import design as designs
+from sweep import specdiff
+from sweep import expr as expressions
 from sweep.errors import SpecError
 from sweep.model import Model, parse_model
 
@@ -47,13 +53,17 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "run", "time", "parameters", "design"}
-_RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events"}
+_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived"}
+_RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options"}
 
 
 @dataclass(frozen=True)
 class Spec:
-    """A validated sweep. ``fixed`` holds every model parameter's value after overrides."""
+    """A validated sweep. ``fixed`` holds every model parameter's value after overrides.
+
+    ``derived`` lists (name, expression) pairs in evaluation order: each is computed at every
+    point from the fixed, varied and earlier derived values.
+    """
 
     path: Path
     text: str
@@ -69,6 +79,13 @@ class Spec:
     times: tuple[float, ...]
     fixed: tuple[tuple[str, float], ...]
     design: designs.Design
+    derived: tuple[tuple[str, expressions.Expr], ...] = ()
+    options: tuple[tuple[str, Any], ...] = ()
+
+    @property
+    def content_sha256(self) -> str:
+        """Digest of what decides the numbers (see ``sweep.specdiff``); resume needs it unchanged."""
+        return specdiff.digest(self.text, self.model_text, self.design.option("file_sha256") or "")
 
     @property
     def param_names(self) -> tuple[str, ...]:
@@ -77,12 +94,27 @@ class Spec:
 
     def points(self) -> np.ndarray:
         """The design's parameter points, shape (points, varied parameters)."""
+        return self._points.copy()
+
+    @functools.cached_property
+    def _points(self) -> np.ndarray:
+        # expanded once per Spec: an optimised Latin hypercube can take a while
         return designs.expand(self.design, self.seed)
 
     def values_at(self, row: np.ndarray) -> dict[str, float]:
-        """Every parameter's value at one point (fixed values overridden by the row)."""
+        """Every parameter's value at one point: fixed values, overridden by the row, then derived."""
         values = dict(self.fixed)
         values.update(zip(self.param_names, (float(v) for v in row)))
+        for name, expr in self.derived:
+            values[name] = float(expressions.evaluate(expr, values))
+        return values
+
+    def columns(self, points: np.ndarray) -> dict[str, Any]:
+        """Every parameter's values at all ``points`` at once: floats for fixed, arrays otherwise."""
+        values: dict[str, Any] = dict(self.fixed)
+        values.update((name, points[:, q]) for q, name in enumerate(self.param_names))
+        for name, expr in self.derived:
+            values[name] = np.broadcast_to(expressions.evaluate(expr, values), (points.shape[0],))
         return values
 
 
@@ -119,7 +151,9 @@ def load(path: str | Path, store: str | Path | None = None) -> Spec:
 
 
 def from_text(text: str, path: str | Path, model_text: str = "", store: str | Path | None = None) -> Spec:
-    """Validate a spec given as text (plus the text of the model file it names); reads no files.
+    """Validate a spec given as text (plus the text of the model file it names).
+
+    Reads no files, except the CSV file of a ``table`` design (relative to ``path``).
 
     ``path`` is used in error messages and to name the model file. A store keeps both texts
     in its attributes, so ``sweep trace`` rebuilds the exact spec a store was run with.
@@ -135,20 +169,52 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     if method not in kernels.METHODS:
         raise SpecError(src, "run.method", "unknown method", method,
                         f"choose one of: {', '.join(sorted(kernels.METHODS))}")
-    replicates = _int(run, "replicates", src, "run", minimum=1, default=None)
+    replicates = _int(run, "replicates", src, "run", minimum=1,
+                      default=1 if method in kernels.DETERMINISTIC else None)
+    if method in kernels.DETERMINISTIC and replicates != 1:
+        raise SpecError(src, "run.replicates", f"method {method!r} is deterministic: one trajectory per point",
+                        replicates, "set replicates = 1")
+    options = _options(run.get("options", {}), method, src)
     per_task = _int(run, "replicates_per_task", src, "run", minimum=1,
                     default=min(replicates, DEFAULT_REPLICATES_PER_TASK))
     seed = _int(run, "seed", src, "run", minimum=0, default=0)
     max_events = _int(run, "max_events", src, "run", minimum=1, default=DEFAULT_MAX_EVENTS)
     store_path = Path(store) if store is not None else Path(_str(run, "store", src, "run", f"{path.stem}.zarr"))
     times = _times(_sub(doc, "time", src, required=True), src)
-    fixed = _fixed(_sub(doc, "parameters", src), model, src)
+    overrides = _sub(doc, "parameters", src)
+    fixed = _fixed(overrides, model, src)
     design = designs.parse(_sub(doc, "design", src), dict(fixed), src)
-    digest = hashlib.sha256(text.encode() + b"\0" + model_text.encode()).hexdigest()
+    derived = _derived(_sub(doc, "derived", src), dict(fixed), overrides, design.names, src)
+    hashed = text.encode() + b"\0" + model_text.encode()
+    if design.option("file_sha256"):
+        # a design read from a file (a table of points): changing the file changes the sweep
+        hashed += b"\0" + design.option("file_sha256").encode()
+    digest = hashlib.sha256(hashed).hexdigest()
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
-                max_events, times, fixed, design)
+                max_events, times, fixed, design, derived, options)
     _check_points(spec, src)
     return spec
+
+
+def _options(table: Any, method: str, src: str) -> tuple[tuple[str, Any], ...]:
+    """Validate [run.options] against what the method takes (``kernels.OPTIONS``)."""
+    if not isinstance(table, dict):
+        raise SpecError(src, "run.options", "must be a table", table, "e.g. options = { dt = 0.01 }")
+    allowed = kernels.OPTIONS.get(method, {})
+    out = []
+    for key, value in table.items():
+        field = f"run.options.{key}"
+        if key not in allowed:
+            raise SpecError(src, field, f"method {method!r} takes no such option",
+                            fix=f"it takes: {', '.join(allowed) or '(none)'}")
+        kind = allowed[key]
+        if isinstance(kind, tuple):
+            if value not in kind:
+                raise SpecError(src, field, "not a known choice", value, f"choose one of: {', '.join(kind)}")
+        elif not _is_num(value) or value <= 0 or (kind == "fraction" and value >= 1):
+            raise SpecError(src, field, "must be a number > 0" + (" and < 1" if kind == "fraction" else ""), value)
+        out.append((key, value))
+    return tuple(out)
 
 
 def _read(path: Path, src: str, field: str) -> str:
@@ -262,22 +328,104 @@ def _known(values) -> str:
     return f"known parameters: {', '.join(values) or '(none)'}"
 
 
+def _derived(table, known, overrides, varied, src) -> tuple[tuple[str, expressions.Expr], ...]:
+    """Parse ``[derived]`` and order it so every expression comes after the ones it uses."""
+    exprs = {}
+    for name, text in table.items():
+        field = f"derived.{name}"
+        if name not in known:
+            raise SpecError(src, field, "not a parameter of the model", fix=_known(known))
+        if name in overrides or name in varied:
+            where = "[parameters]" if name in overrides else "[design]"
+            raise SpecError(src, field, f"also set under {where}", fix="a parameter is fixed, varied or derived: pick one")
+        if not isinstance(text, str):
+            raise SpecError(src, field, "must be an expression in quotes", text,
+                            f'e.g. {name} = "k_on * Kd"; a fixed value belongs under [parameters]')
+        expr = expressions.parse(text, src, field)
+        for used in expr.names:
+            if used not in known:
+                raise SpecError(src, field, f"unknown name {used!r}", text, _known(known))
+        exprs[name] = expr
+    return tuple((name, exprs[name]) for name in _evaluation_order(exprs, src))
+
+
+def _evaluation_order(exprs: Mapping[str, expressions.Expr], src: str) -> list[str]:
+    """Depth-first topological order of the derived parameters; a cycle is an error."""
+    order: list[str] = []
+    state: dict[str, str] = {}
+
+    def visit(name: str, path: list[str]) -> None:
+        if state.get(name) == "done":
+            return
+        if state.get(name) == "open":
+            cycle = path[path.index(name):] + [name]
+            raise SpecError(src, f"derived.{name}", f"derived parameters form a cycle: {' -> '.join(cycle)}",
+                            fix="at least one of them must be fixed or varied instead")
+        state[name] = "open"
+        for used in exprs[name].names:
+            if used in exprs:
+                visit(used, path + [name])
+        state[name] = "done"
+        order.append(name)
+
+    for name in exprs:
+        visit(name, [])
+    return order
+
+
 def _check_points(spec: Spec, src: str) -> None:
     """Every point must give non-negative rates and whole, non-negative initial counts."""
     rate_params = {r.rate for r in spec.model.reactions if isinstance(r.rate, str)}
     count_params = {v for v in spec.model.initial if isinstance(v, str)}
-    points = spec.points()
+    roles = (rate_params, count_params)
     model_values = spec.model.parameter_values
+    derived = dict(spec.derived)
     for name, value in spec.fixed:
-        if name not in spec.param_names and value != model_values[name]:
-            _check_value(name, value, rate_params, count_params, src, f"parameters.{name}")
+        if name not in spec.param_names and name not in derived and value != model_values[name]:
+            _check_value(name, value, *roles, src, f"parameters.{name}")
+    facts = designs.describe(spec.design)["parameters"]
+    for name in spec.param_names:
+        if (name in rate_params or name in count_params) and facts.get(name, {}).get("low", 0.0) is None:
+            raise SpecError(src, f"design.vary.{name}", f"{name} must be >= 0 but its distribution is unbounded below",
+                            fix="truncate it: add low = 0")
+    points = spec.points()
     for q, name in enumerate(spec.param_names):
         for value in np.unique(points[:, q]):
-            _check_value(name, float(value), rate_params, count_params, src, f"design.vary.{name}")
+            _check_value(name, float(value), *roles, src, f"design.vary.{name}")
+    if derived and points.shape[0]:
+        _check_derived(spec, points, derived, roles, src)
+
+
+def _check_derived(spec: Spec, points: np.ndarray, derived, roles, src) -> None:
+    """Derived values must be finite everywhere, and valid wherever they are rates or counts."""
+    rate_params, count_params = roles
+    columns = spec.columns(points)
+    for name, expr in derived.items():
+        values = np.asarray(columns[name], dtype=np.float64)
+        problems = [(~np.isfinite(values), "is not a finite number",
+                     "check for a division by zero, the log of a number <= 0, or an overflow")]
+        if name in rate_params:
+            problems.append((values < 0, f"rate constant {name} must be >= 0", ""))
+        if name in count_params:
+            problems.append(((values < 0) | (values != np.round(values)),
+                             f"{name} sets an initial count and must be a whole number >= 0",
+                             "the expression must come out whole at every point"))
+        for mask, problem, fix in problems:
+            with np.errstate(invalid="ignore"):
+                bad = np.flatnonzero(mask)
+            if bad.size:
+                p = int(bad[0])
+                raise SpecError(src, f"derived.{name}", f"{problem}: it is {values[p]:g} at point {p} "
+                                f"({_point_text(spec, points[p])})", expr.text, fix)
+
+
+def _point_text(spec: Spec, row: np.ndarray) -> str:
+    return ", ".join(f"{n} = {v:g}" for n, v in zip(spec.param_names, row)) or "the only point"
 
 
 def _check_value(name, value, rate_params, count_params, src, field) -> None:
     if name in rate_params and value < 0:
         raise SpecError(src, field, f"rate constant {name} must be >= 0", value)
     if name in count_params and (value < 0 or value != int(value)):
-        raise SpecError(src, field, f"{name} sets an initial count and must be a whole number >= 0", value)
+        fix = "add integer = true to its entry" if field.startswith("design.") else ""
+        raise SpecError(src, field, f"{name} sets an initial count and must be a whole number >= 0", value, fix)

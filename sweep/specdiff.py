@@ -15,24 +15,29 @@ from typing import Any
 _IGNORED = ("run.store",)
 
 
-def content(spec_text: str, model_text: str) -> dict[str, Any]:
-    """Flattened dotted keys of the spec (and of its model file under ``model file.``)."""
+def content(spec_text: str, model_text: str, design_file_sha256: str = "") -> dict[str, Any]:
+    """Flattened dotted keys of the spec (and of its model file under ``model file.``).
+
+    A design read from a file (a table of points) enters through that file's SHA-256.
+    """
     flat = _flatten(tomllib.loads(spec_text))
     if model_text:
         flat.update(_flatten(tomllib.loads(model_text), "model file."))
+    if design_file_sha256:
+        flat["design file SHA-256"] = design_file_sha256
     for key in _IGNORED:
         flat.pop(key, None)
     return flat
 
 
-def digest(spec_text: str, model_text: str) -> str:
+def digest(spec_text: str, model_text: str, design_file_sha256: str = "") -> str:
     """SHA-256 of the canonical content: equal digests mean a resume is safe."""
-    canonical = json.dumps(content(spec_text, model_text), sort_keys=True, default=str)
+    canonical = json.dumps(content(spec_text, model_text, design_file_sha256), sort_keys=True, default=str)
     return hashlib.sha256(canonical.encode()).hexdigest()
 
 
 def changes(old: tuple[str, str], new: tuple[str, str]) -> list[str]:
-    """Readable list of changes from ``old`` to ``new`` (each a (spec text, model text) pair).
+    """Readable list of changes from ``old`` to ``new`` (each (spec text, model text[, design file SHA-256])).
 
     Example
     -------

@@ -35,7 +35,7 @@ import numpy as np
 import zarr
 from zarr.codecs import BloscCodec
 
-from sweep import specdiff
+from sweep import design as designs
 from sweep.errors import StoreError
 from sweep.lock import LOCK_NAME
 
@@ -74,7 +74,7 @@ def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     # every written chunk exists on disk, even one equal to the fill value, so that
     # `sweep status --verify` can tell a lost chunk from a block of failed replicates
     data = {"write_empty_chunks": True}
-    _array(g, "counts", (n_p, n_r, n_t, n_s), (1, rb, n_t, n_s), "int32", -1,
+    _array(g, "counts", (n_p, n_r, n_t, n_s), (1, rb, n_t, n_s), counts_dtype(spec.method), -1,
            ("point", "replicate", "time", "species"), data)
     _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"), data)
     _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"), data)
@@ -90,6 +90,16 @@ def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     if spec.param_names:
         names[:] = np.asarray(spec.param_names, dtype=object)
     consolidate(path)
+
+
+def counts_dtype(method: str) -> np.dtype:
+    """int32 molecule counts, or float64 for methods with a real-valued state (Langevin, ODE).
+
+    A kernel module says so with ``COUNTS_DTYPE``; unknown samples are -1 either way.
+    """
+    import kernels
+
+    return np.dtype(getattr(kernels.get(method), "COUNTS_DTYPE", np.int32))
 
 
 def _clear(path: Path) -> None:
@@ -127,7 +137,9 @@ def _attributes(spec: Spec) -> dict:
         "spec_path": str(spec.path),
         "model": spec.model_text,
         "spec_sha256": spec.sha256,
-        "content_sha256": specdiff.digest(spec.text, spec.model_text),
+        "content_sha256": spec.content_sha256,
+        "design_file_sha256": spec.design.option("file_sha256") or "",
+        "design": designs.describe(spec.design),  # what an analysis needs to pair samples
         "method": spec.method,
         "root_seed": spec.seed,
         "replicates_per_task": spec.replicates_per_task,

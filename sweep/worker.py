@@ -32,6 +32,7 @@ class TaskInput:
     start: int
     stop: int
     max_events: int
+    options: tuple[tuple[str, object], ...] = ()  # method keyword options from [run.options]
 
 
 @dataclass(frozen=True)
@@ -49,7 +50,8 @@ def run_task(task: TaskInput) -> TaskResult:
     began = time.perf_counter()
     kernel = kernels.get(task.method)
     seeds = replicate_seeds(task.root_seed, task.point, task.start, task.stop)
-    result = kernel.simulate(task.network, task.rates, task.x0, task.times, seeds, task.max_events)
+    result = kernel.simulate(task.network, task.rates, task.x0, task.times, seeds, task.max_events,
+                             **dict(task.options))
     store.write_block(task.store, task.point, task.start, task.stop, result)
     return TaskResult(task.point, task.block, int(result.events.sum()),
                       int(np.count_nonzero(result.status == STATUS_EVENT_CAP)),
@@ -57,10 +59,11 @@ def run_task(task: TaskInput) -> TaskResult:
                       time.perf_counter() - began)
 
 
-def warm_up(method: str, network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray) -> None:
+def warm_up(task: TaskInput) -> None:
     """Compile (or load from numba's cache) the kernel once in this process.
 
     Doing it in the client before workers start means every worker gets a cache hit
     instead of several processes compiling the same signature at once.
     """
-    kernels.get(method).simulate(network, rates, x0, times, [np.random.SeedSequence(0)], 1)
+    kernels.get(task.method).simulate(task.network, task.rates, task.x0, task.times,
+                                      [np.random.SeedSequence(0)], 1, **dict(task.options))

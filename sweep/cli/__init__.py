@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import typer
 
-from sweep.cli import bench, inspect, running, setup, tracing
+from sweep.cli import analyzing, bench, exporting, inspect, planning, plotting, running, setup, tracing
 
 app = typer.Typer(
     name="sweep",
@@ -19,9 +19,13 @@ app = typer.Typer(
 )
 app.command("init")(setup.init)
 app.command("check")(setup.check)
+app.command("plan")(planning.plan)
 app.command("run")(running.run)
 app.command("status")(inspect.status)
 app.command("trace")(tracing.trace)
+app.command("analyze")(analyzing.analyze)
+app.command("plot")(plotting.plot)
+app.command("export")(exporting.export)
 app.command("bench")(bench.bench)
 
 

@@ -60,7 +60,10 @@ def check(
     design.add_column("values")
     for q, name in enumerate(spec.param_names):
         design.add_row(name, _values(points[:, q]))
-    fixed = [(n, v) for n, v in spec.fixed if n not in spec.param_names]
+    derived = dict(spec.derived)
+    for name, expr in spec.derived:
+        design.add_row(f"[dim]{name}[/]", f"[dim]= {expr.text} (derived)[/]")
+    fixed = [(n, v) for n, v in spec.fixed if n not in spec.param_names and n not in derived]
     for name, value in fixed:
         design.add_row(f"[dim]{name}[/]", f"[dim]{value:g} (fixed)[/]")
     console.print(design)

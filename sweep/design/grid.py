@@ -1,10 +1,13 @@
-"""Full factorial grid over explicit value lists::
+"""Full factorial grid over explicit value lists and ranges::
 
     [design]
     kind = "grid"
     [design.vary]
-    k_tx = [0.5, 1.0, 2.0]
-    k_off = [0.05, 0.1]
+    k_tx = [0.5, 1.0, 2.0]                                          # these values
+    k_off = { low = 0.01, high = 1.0, count = 5, spacing = "log" }  # 5 values, equal ratios
+    A0 = { low = 0, high = 100, count = 6, integer = true }         # 0, 20, ..., 100
+
+Points run through every combination; the last parameter changes fastest.
 """
 
 from __future__ import annotations
@@ -14,33 +17,29 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from sweep.design import Design
+from sweep.design import Design, levels
 from sweep.errors import SpecError
 
 
 def parse(table: Mapping[str, Any], known: Mapping[str, float], source: str) -> Design:
-    """Validate ``kind = "grid"`` with a ``[design.vary]`` table of value lists."""
-    for key in table:
-        if key not in ("kind", "vary"):
-            raise SpecError(source, f"design.{key}", "unknown key", fix="a grid design takes: kind, vary")
+    """Validate ``kind = "grid"`` with a ``[design.vary]`` table of value lists or ranges.
+
+    Raises
+    ------
+    SpecError
+        Unknown key or parameter, or a bad list or range (see ``sweep.design.levels``).
+    """
+    levels.check_keys(table, ("kind", "vary"), source, "design", "a grid design")
     vary = table.get("vary", {})
     if not isinstance(vary, dict):
         raise SpecError(source, "design.vary", "must be a table", vary)
-    values = []
-    for name, listed in vary.items():
-        field = f"design.vary.{name}"
-        if name not in known:
-            raise SpecError(source, field, "not a parameter of the model",
-                            fix=f"known parameters: {', '.join(known) or '(none)'}")
-        if not isinstance(listed, list) or not listed or not all(_is_number(v) for v in listed):
-            raise SpecError(source, field, "must be a non-empty list of numbers", listed,
-                            f"e.g. {name} = [0.1, 0.2, 0.4]")
-        values.append((name, tuple(float(v) for v in listed)))
-    return Design("grid", tuple(n for n, _ in values), (("values", tuple(values)),))
+    values = tuple((name, levels.parse(name, entry, known, source, f"design.vary.{name}"))
+                   for name, entry in vary.items())
+    return Design("grid", tuple(n for n, _ in values), (("values", values),))
 
 
 def expand(design: Design, seed: int = 0) -> np.ndarray:
-    """Every combination of the listed values; the last parameter varies fastest.
+    """Every combination of the levels; the last parameter varies fastest. Ignores ``seed``.
 
     Example
     -------
@@ -54,5 +53,8 @@ def expand(design: Design, seed: int = 0) -> np.ndarray:
     return np.array(list(combos), dtype=np.float64).reshape(-1, len(values))
 
 
-def _is_number(v) -> bool:
-    return not isinstance(v, bool) and isinstance(v, (int, float)) and bool(np.isfinite(v))
+def describe(design: Design) -> dict[str, Any]:
+    """Kind, names, and each parameter's levels with their range."""
+    values = design.option("values", ())
+    return {"kind": "grid", "names": list(design.names),
+            "parameters": {name: {"values": list(v), "low": min(v), "high": max(v)} for name, v in values}}

@@ -54,6 +54,10 @@ samples = 9
 k = [300.0, 400.0]
 h = [0.01, 0.02]
 """
+# the same sweep with ten times the work per task (48 tasks of ~0.3 s): long enough that a
+# signal sent after the first completions always lands mid-run
+SLOW_BODY = BODY.replace("replicates = 240", "replicates = 2400").replace("replicates_per_task = 20",
+                                                                          "replicates_per_task = 200")
 DATA = ("counts", "status", "events")
 runner = CliRunner()
 
@@ -66,6 +70,16 @@ def reference(tmp_path_factory, spec_writer):
     spec = sweep.load(path, store=folder / "ref.zarr")
     summary = sweep.run(spec, workers=2)
     assert summary.complete
+    return path, _arrays(spec.store)
+
+
+@pytest.fixture(scope="module")
+def slow_reference(tmp_path_factory, spec_writer):
+    """Like ``reference``, for the tests that signal a running sweep."""
+    folder = tmp_path_factory.mktemp("slow")
+    path = spec_writer(folder, SLOW_BODY, model=MODEL)
+    spec = sweep.load(path, store=folder / "ref.zarr")
+    assert sweep.run(spec, workers=2).complete
     return path, _arrays(spec.store)
 
 
@@ -111,8 +125,8 @@ def _rerun(spec_path: Path, store: Path) -> subprocess.CompletedProcess:
     return subprocess.run(cmd, capture_output=True, text=True, timeout=300, env={**os.environ, "COLUMNS": "200"})
 
 
-def test_sigkill_of_the_whole_run_then_resume(reference, tmp_path):
-    spec_path, expected = reference
+def test_sigkill_of_the_whole_run_then_resume(slow_reference, tmp_path):
+    spec_path, expected = slow_reference
     store = tmp_path / "killed.zarr"
     proc = _start(spec_path, store)
     _wait_for_progress(proc, store, at_least=6)
@@ -128,8 +142,8 @@ def test_sigkill_of_the_whole_run_then_resume(reference, tmp_path):
     assert not (store / LOCK_NAME).exists() and not list(store.rglob("*.partial"))
 
 
-def test_ctrl_c_stops_cleanly_and_prints_the_resume_command(reference, tmp_path):
-    spec_path, expected = reference
+def test_ctrl_c_stops_cleanly_and_prints_the_resume_command(slow_reference, tmp_path):
+    spec_path, expected = slow_reference
     store = tmp_path / "interrupted.zarr"
     proc = _start(spec_path, store)
     _wait_for_progress(proc, store, at_least=4)

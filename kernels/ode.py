@@ -1,0 +1,238 @@
+"""Deterministic reaction rate equations (the large-number limit), solved with scipy.
+
+The state x is real-valued and in molecule-number units (no volume conversion)::
+
+    dx/dt = sum_j nu_j a_j(x),    a_j(x) = c_j * prod_s x_s^m_s / m_s!
+
+Choices:
+
+- **Rate law.** The macroscopic mass-action form c * prod x^m / m!, not the combinatorial
+  c * prod C(x, m) of the stochastic methods: for 2A -> it is c A^2 / 2, not c A(A-1)/2. This is
+  the standard rate equation in molecule numbers, the limit of the chemical master equation as
+  the copy numbers grow (Kurtz 1972, "The relationship between stochastic and deterministic
+  models for chemical reactions", J. Chem. Phys. 57:2976; Gillespie 1977 gives c = 2k/(N_A V) for
+  2A, so c A^2 / 2 = k A^2 / (N_A V) is the textbook k[A]^2 in number units). The rate constants
+  are the same stochastic c_j the other methods take, so a sweep can switch methods unchanged.
+  Each x_s is clipped at 0 inside the rate law, so a species at 0 is never consumed further.
+- **Solver.** ``scipy.integrate.solve_ivp`` with LSODA by default (switches between Adams and
+  BDF as stiffness demands; Petzold 1983, SIAM J. Sci. Stat. Comput. 4:136), or BDF
+  (``ode_method="BDF"``), tolerances ``RTOL`` and ``ATOL`` (molecule numbers), the analytic
+  Jacobian, and the sample times as ``t_eval``. The right-hand side and Jacobian are numba
+  functions; only the solver's loop runs in Python.
+- **Replicates.** The solution is deterministic: the ``seeds`` only set the number of rows, and
+  every row is the same trajectory (the sweep should run this method with one replicate).
+- **Outputs.** ``counts`` are float64 (``COUNTS_DTYPE``); samples at t = 0 are x0 exactly, and
+  values below 0 (integration error, within ``ATOL``) are reported as 0. ``events`` is the number
+  of right-hand-side evaluations. ``max_events`` caps them: a solve that needs more stops with
+  status 1, and as ``solve_ivp`` returns nothing from an aborted solve, every sample after t = 0
+  is then -1. A solver failure (``success`` false) or a non-finite value, including a
+  right-hand side that overflows in a finite-time blow-up, gives status 2 and all samples -1.
+  When every rate is 0 at x0 the state is an equilibrium and is returned without calling the
+  solver (``events`` 0), as the stochastic methods hold a state whose propensities are all 0.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Sequence
+
+import numba
+import numpy as np
+from scipy.integrate import solve_ivp
+
+from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+
+COUNTS_DTYPE = np.float64
+ODE_METHODS = ("LSODA", "BDF")
+DEFAULT_ODE_METHOD = "LSODA"
+RTOL = 1e-8
+ATOL = 1e-8  # molecules: far below one molecule; RTOL governs the large values
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _rate_law(scaled, reactant_idx, reactant_mult, x, a):
+    """a_j = scaled_j * prod_s max(x_s, 0)^m_s, with scaled_j = c_j / prod_s m_s!."""
+    for j in range(scaled.shape[0]):
+        v = scaled[j]
+        for k in range(reactant_idx.shape[1]):
+            s = reactant_idx[j, k]
+            if s < 0:
+                break
+            v *= max(x[s], 0.0) ** reactant_mult[j, k]
+        a[j] = v
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _rhs(x, scaled, reactant_idx, reactant_mult, change_idx, change_val):
+    """dx/dt = sum_j nu_j a_j(x)."""
+    a = np.empty(scaled.shape[0])
+    _rate_law(scaled, reactant_idx, reactant_mult, x, a)
+    dx = np.zeros(x.shape[0])
+    for j in range(scaled.shape[0]):
+        for l in range(change_idx.shape[1]):
+            s = change_idx[j, l]
+            if s < 0:
+                break
+            dx[s] += change_val[j, l] * a[j]
+    return dx
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def _jacobian(x, scaled, reactant_idx, reactant_mult, change_idx, change_val):
+    """J[s, r] = sum_j nu_sj d a_j / d x_r, dense (S, S).
+
+    d/dx_r of x_r^m is m x_r^(m-1) on max(x_r, 0); for m = 1 that is 1 (0^0 = 1), the derivative
+    from the right at 0, which serves the solver's Newton iteration.
+    """
+    n_s = x.shape[0]
+    jac = np.zeros((n_s, n_s))
+    for j in range(scaled.shape[0]):
+        for k in range(reactant_idx.shape[1]):
+            r = reactant_idx[j, k]
+            if r < 0:
+                break
+            d = scaled[j]
+            for k2 in range(reactant_idx.shape[1]):
+                s2 = reactant_idx[j, k2]
+                if s2 < 0:
+                    break
+                m = reactant_mult[j, k2]
+                xv = max(x[s2], 0.0)
+                d *= m * xv ** (m - 1) if k2 == k else xv ** m
+            for l in range(change_idx.shape[1]):
+                s = change_idx[j, l]
+                if s < 0:
+                    break
+                jac[s, r] += change_val[j, l] * d
+    return jac
+
+
+class _EventCap(Exception):
+    """Raised inside ``solve_ivp`` when the right-hand side has been evaluated ``max_events`` times."""
+
+
+class _NonFinite(Exception):
+    """Raised inside ``solve_ivp`` when the right-hand side is not finite (a blow-up overflowed).
+
+    Without it LSODA retries ever smaller steps on an infinite derivative until the cap.
+    """
+
+
+class _System:
+    """The right-hand side and Jacobian for ``solve_ivp``, counting evaluations against a cap."""
+
+    def __init__(self, network: Network, scaled: np.ndarray, max_events: int):
+        self.args = (scaled, network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val)
+        self.max_events = max_events
+        self.calls = 0
+
+    def rhs(self, t: float, x: np.ndarray) -> np.ndarray:
+        if self.calls >= self.max_events:
+            raise _EventCap
+        self.calls += 1
+        dx = _rhs(x, *self.args)
+        if not np.isfinite(dx).all():
+            raise _NonFinite
+        return dx
+
+    def jac(self, t: float, x: np.ndarray) -> np.ndarray:
+        return _jacobian(x, *self.args)
+
+
+def _scaled_rates(network: Network, rates: np.ndarray) -> np.ndarray:
+    """c_j / prod_s m_s! for each reaction j (m_s its reactant multiplicities)."""
+    factorials = np.array([math.prod(math.factorial(int(m)) for m in row) for row in network.reactant_mult],
+                          dtype=np.float64)
+    return np.ascontiguousarray(rates, dtype=np.float64) / factorials
+
+
+def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray, max_events: int, *,
+          ode_method: str = DEFAULT_ODE_METHOD, rtol: float = RTOL, atol: float = ATOL
+          ) -> tuple[np.ndarray, int, int]:
+    """Solve the rate equations once: (samples float64 (T, S), status, right-hand-side evaluations).
+
+    Raises
+    ------
+    ValueError
+        If ``ode_method`` is not one of ``ODE_METHODS``.
+    """
+    if ode_method not in ODE_METHODS:
+        raise ValueError(f"ode_method must be one of {', '.join(ODE_METHODS)}, got {ode_method!r}")
+    x0 = np.ascontiguousarray(x0, dtype=np.float64)
+    times = np.ascontiguousarray(times, dtype=np.float64)
+    scaled = _scaled_rates(network, rates)
+    row = np.empty((times.shape[0], x0.shape[0]), dtype=COUNTS_DTYPE)
+    row[:] = x0
+    later = times > 0.0
+    a = np.empty(scaled.shape[0])
+    _rate_law(scaled, network.reactant_idx, network.reactant_mult, x0, a)
+    if not later.any() or not a.any():
+        return row, 0, 0  # nothing to integrate, or x0 is an equilibrium (every rate is 0 there)
+    # solve_ivp wants strictly increasing t_eval: solve on the distinct times, then spread back
+    t_eval, where = np.unique(times[later], return_inverse=True)
+    system = _System(network, scaled, int(max_events))
+    try:
+        sol = solve_ivp(system.rhs, (0.0, float(t_eval[-1])), x0, method=ode_method, t_eval=t_eval,
+                        jac=system.jac, rtol=rtol, atol=atol)
+    except _EventCap:
+        row[later] = -1.0
+        return row, STATUS_EVENT_CAP, system.calls
+    except _NonFinite:
+        row[:] = -1.0
+        return row, STATUS_NUMERICAL, system.calls
+    if not sol.success or sol.y.shape[1] != t_eval.shape[0] or not np.isfinite(sol.y).all():
+        row[:] = -1.0
+        return row, STATUS_NUMERICAL, system.calls
+    row[later] = np.maximum(sol.y.T[where], 0.0)
+    return row, 0, system.calls
+
+
+def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
+             seeds: Sequence[np.random.SeedSequence], max_events: int, *,
+             ode_method: str = DEFAULT_ODE_METHOD, rtol: float = RTOL, atol: float = ATOL) -> KernelResult:
+    """Solve the deterministic rate equations; one identical row per seed.
+
+    Parameters
+    ----------
+    network : Network
+        The compiled reaction network.
+    rates : float64 (R,)
+        Stochastic rate constants c_j; the rate law is c_j * prod x^m / m! (module docstring).
+    x0 : (S,)
+        Initial molecule numbers.
+    times : float64 (T,)
+        Non-decreasing sample times, all >= 0.
+    seeds : sequence of SeedSequence
+        Only their number is used: every row is the same deterministic solution.
+    max_events : int
+        Cap on right-hand-side evaluations.
+    ode_method : {"LSODA", "BDF"}
+        The ``solve_ivp`` method.
+    rtol, atol : float
+        Solver tolerances (``atol`` in molecules).
+
+    Returns
+    -------
+    KernelResult
+        counts (n, T, S) float64, status (n,) int8, events (n,) int64 = right-hand-side evaluations.
+
+    Raises
+    ------
+    ValueError
+        If ``ode_method`` is not one of ``ODE_METHODS``.
+
+    Example
+    -------
+    >>> res = simulate(net, np.array([5.0, 0.5]), np.array([0]), np.linspace(0, 30, 31),
+    ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 100_000)
+    """
+    if ode_method not in ODE_METHODS:
+        raise ValueError(f"ode_method must be one of {', '.join(ODE_METHODS)}, got {ode_method!r}")
+    n = len(seeds)
+    times = np.ascontiguousarray(times, dtype=np.float64)
+    if n == 0:
+        return KernelResult(np.empty((0, times.shape[0], len(x0)), dtype=COUNTS_DTYPE),
+                            np.empty(0, dtype=np.int8), np.empty(0, dtype=np.int64))
+    row, status, calls = solve(network, rates, x0, times, max_events, ode_method=ode_method, rtol=rtol, atol=atol)
+    return KernelResult(np.broadcast_to(row, (n,) + row.shape).copy(),
+                        np.full(n, status, dtype=np.int8), np.full(n, calls, dtype=np.int64))

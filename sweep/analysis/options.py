@@ -1,0 +1,150 @@
+"""What an analysis is asked for: thresholds, outputs and the options of ``sweep analyze``.
+
+Pure Python (no numpy, xarray or dask), so the CLI can build these at its edge cheaply.
+
+A *threshold* is a condition on one species' count, written ``"protein>=500"`` (switching on)
+or ``"A<=0"`` (extinction); the operators are ``>=``, ``>``, ``<=`` and ``<``. Each one gives
+the fraction of replicates meeting it at every time and the time it is first met.
+
+An *output* is one number per point that sensitivity analysis and the replicate-adequacy
+report use: a statistic of one species (or of one threshold) at one sample time, e.g. the
+protein Fano factor at t = 600.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+from sweep.errors import SpecError
+
+OPERATORS = (">=", "<=", ">", "<")
+#: statistics of a species' count at a time, computed at every (point, time, species)
+SPECIES_STATISTICS = ("mean", "var", "sd", "cv", "fano")
+#: statistics of a threshold: fraction meeting it at a time, mean first-passage time, fraction never
+THRESHOLD_STATISTICS = ("fraction", "passage_mean", "never")
+STATISTICS = SPECIES_STATISTICS + THRESHOLD_STATISTICS
+NAMES = {"mean": "mean", "var": "variance", "sd": "standard deviation", "cv": "coefficient of variation",
+         "fano": "Fano factor", "fraction": "fraction of replicates meeting", "passage_mean": "mean first-passage time",
+         "never": "fraction never meeting"}
+_THRESHOLD = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(>=|<=|>|<)\s*([-+0-9.eE]+)\s*$")
+
+
+@dataclass(frozen=True)
+class Threshold:
+    """A condition ``count <op> value`` on one species."""
+
+    species: str
+    op: str
+    value: float
+
+    @property
+    def label(self) -> str:
+        return f"{self.species}{self.op}{self.value:g}"
+
+
+def parse_threshold(text: str, source: str = "sweep analyze", field: str = "--threshold") -> Threshold:
+    """``"protein>=500"`` -> Threshold("protein", ">=", 500.0).
+
+    Raises
+    ------
+    SpecError
+        Not of the form SPECIES OP NUMBER.
+
+    Example
+    -------
+    >>> parse_threshold("A<=0").label
+    'A<=0'
+    """
+    match = _THRESHOLD.match(text)
+    if match is None:
+        raise SpecError(source, field, "not a threshold", text,
+                        'write SPECIES OP COUNT, e.g. "protein>=500" or "A<=0" (OP one of >=, >, <=, <)')
+    try:
+        value = float(match.group(3))
+    except ValueError as exc:
+        raise SpecError(source, field, "the count is not a number", text) from exc
+    return Threshold(match.group(1), match.group(2), value)
+
+
+@dataclass(frozen=True)
+class Output:
+    """One number per point: ``statistic`` of ``species`` (or of ``threshold``) at ``time``.
+
+    ``time`` is None for the first-passage statistics, which cover the whole time grid.
+    """
+
+    statistic: str
+    species: str
+    time: float | None
+    threshold: str | None = None
+
+    @property
+    def label(self) -> str:
+        subject = self.threshold if self.threshold is not None else self.species
+        at = f" at t={self.time:g}" if self.time is not None else ""
+        return f"{self.statistic}({subject}){at}"
+
+    @property
+    def description(self) -> str:
+        """Readable, for axis labels and titles: 'Fano factor of protein at t = 600'."""
+        subject = f"{self.threshold}" if self.threshold is not None else f"of {self.species}"
+        at = f" at t = {self.time:g}" if self.time is not None else ""
+        return f"{NAMES[self.statistic]} {subject}{at}"
+
+
+@dataclass(frozen=True)
+class AnalysisOptions:
+    """Everything ``sweep.analyze`` computes, resolved once at the CLI edge.
+
+    Parameters
+    ----------
+    quantiles : quantile levels of each species' count at each point and time.
+    thresholds : conditions for the fraction meeting them and first-passage times.
+    histogram_species : species whose distributions are tabulated (default: none).
+    histogram_times : sample times of the at-time histograms (default: the last).
+    stationary_from : pool all samples at times >= this into a stationary histogram (None: no).
+    bins : at most this many bins per histogram (whole-number widths; counts are integers).
+    statistics : statistics whose sensitivity and standard error are reported.
+    species : species of those statistics (default: every species).
+    time : sample time of those statistics (default: the last).
+    precision : target standard error, relative to the value unless ``relative`` is false.
+    tables : folder for the CSV tables (default: ``<store>_analysis`` beside the store).
+    seed : seed of the bootstrap confidence intervals (Sobol, Morris).
+    """
+
+    quantiles: tuple[float, ...] = (0.05, 0.25, 0.5, 0.75, 0.95)
+    thresholds: tuple[Threshold, ...] = ()
+    histogram_species: tuple[str, ...] = ()
+    histogram_times: tuple[float, ...] = ()
+    stationary_from: float | None = None
+    bins: int = 50
+    statistics: tuple[str, ...] = ("mean", "fano")
+    species: tuple[str, ...] = ()
+    time: float | None = None
+    precision: float = 0.05
+    relative: bool = True
+    tables: str | None = None
+    seed: int = 0
+
+    def check(self, source: str = "sweep analyze") -> None:
+        """Validate what can be checked without the store.
+
+        Raises
+        ------
+        SpecError
+            A quantile outside [0, 1], an unknown statistic, a non-positive precision or bins.
+        """
+        for q in self.quantiles:
+            if not 0.0 <= q <= 1.0:
+                raise SpecError(source, "--quantile", "must be between 0 and 1", q)
+        for s in self.statistics:
+            if s not in STATISTICS:
+                raise SpecError(source, "--statistic", "unknown statistic", s, f"choose from: {', '.join(STATISTICS)}")
+            if s in THRESHOLD_STATISTICS and not self.thresholds:
+                raise SpecError(source, "--statistic", f"{s} needs a threshold", s,
+                                'add e.g. --threshold "protein>=500"')
+        if not self.precision > 0:
+            raise SpecError(source, "--precision", "must be > 0", self.precision)
+        if self.bins < 1:
+            raise SpecError(source, "--bins", "must be at least 1", self.bins)
