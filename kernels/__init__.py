@@ -18,6 +18,7 @@ from kernels.network import KernelResult, Network, Trace
 METHODS: dict[str, str] = {
     "direct": "kernels.direct",
     "nrm": "kernels.nrm",
+    "tau_leap": "kernels.tau_leap",
     "cle": "kernels.cle",
     "ode": "kernels.ode",
 }

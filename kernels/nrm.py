@@ -9,24 +9,29 @@ published (Gibson & Bruck 2000):
 - the fired reaction draws a fresh exponential: tau_mu = t + E / a_mu_new, E ~ Exp(1);
 - a dependent j != mu with a_j_old > 0 and a_j_new > 0 is rescaled:
   tau_j = (a_j_old / a_j_new)(tau_j - t) + t;
-- a dependent whose propensity drops to 0 gets tau_j = +inf, and keeps its unused unit-rate time
-  E_j = a_j_old (tau_j - t) (the paper keeps a_j_old and tau_j - t, which is the same information);
-- when it becomes positive again at time t', tau_j = t' + E_j / a_j_new. By memorylessness E_j
-  is Exp(1) and independent of everything else seen so far, so this is exact.
+- a dependent whose propensity drops to 0 gets tau_j = +inf and keeps its unused unit-rate time
+  E_j = a_j_old (tau_j - t) (the paper keeps a_j_old and tau_j - t, the same information);
+- when it becomes positive again at a later time t', tau_j = t' + E_j / a_j_new. By memorylessness
+  E_j is Exp(1) and independent of everything seen so far, so no new draw is needed.
 
-A reaction whose propensity is zero at t = 0 gets its E_j drawn at the start like every other
-reaction, so the random stream is: R unit exponentials (reaction order) at t = 0, then exactly one
-per event. Each replicate draws only from its own xoshiro256+ stream (``kernels.rng``).
+A reaction whose propensity is zero at t = 0 draws its E_j at the start like every other reaction,
+so the random stream is: R unit exponentials (in reaction order) at t = 0, then exactly one per
+event. Each replicate draws only from its own xoshiro256+ stream (``kernels.rng``).
 
 Sampling and stopping follow ``kernels.direct`` exactly: the state recorded at sample time t is the
 state after the last event at or before t; a replicate whose propensities are all zero (every
-tau_j = inf) holds its state to the end; a replicate reaching ``max_events`` before the end stops
+tau_j = +inf) holds its state to the end; a replicate reaching ``max_events`` before the end stops
 with status 1 and later samples -1; a negative count (or one beyond int32) is status 2 with every
-sample -1. Propensities are recomputed from the state for every dependent (never accumulated), so
-there is no rounding drift to correct.
+sample -1. Propensities are recomputed from the state (never accumulated), so nothing drifts.
 
-Propensities are the mass-action combinations counted by ``kernels.direct.propensity``, read from
-the same packed program (``kernels.direct._program``).
+Propensities are the mass-action combinations of ``kernels.direct.propensity``, read from the same
+packed program (``kernels.direct._program``), built from a dependency graph without self-loops: the
+fired reaction is always updated on its own path, so the dependents' loop needs no ``d == mu`` test.
+
+Speed (see ``sweep.bench``; 100-reaction chain): the time per event is a serial chain of a few
+dependent heap updates and one sift from the root, so the heap holds firing times as the int64 bit
+patterns of the doubles (an integer compare is shorter on that chain), picks the smaller child
+without a branch, and the unit exponential is drawn by a ziggurat one event ahead of its use.
 """
 
 from __future__ import annotations
@@ -39,9 +44,9 @@ from llvmlite import ir
 from numba import types
 from numba.extending import intrinsic
 
-from kernels.direct import _program, _prepare, propensity
+from kernels.direct import _prepare, _program, propensity
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network, Trace
-from kernels.rng import next_words, seed_states, to_open0
+from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
 
@@ -54,15 +59,14 @@ _U3 = np.uint64(3)
 _U4 = np.uint64(4)
 
 # The heap holds firing times as the int64 bit patterns of the doubles. For non-negative doubles,
-# +inf included, IEEE 754 makes the integer order the numeric order, and an integer compare on the
-# sift's serial chain (load, compare, pick the child) is several cycles shorter than a float one.
-# Every firing time is >= 0: t starts at 0 and only ever adds non-negative terms.
+# +inf included, IEEE 754 makes the integer order the numeric order. Every firing time is >= +0.0:
+# t starts at 0 and only adds non-negative terms, and the exponential sampler never returns -0.0.
 _INF_BITS = np.int64(0x7FF0000000000000)  # +inf
 
 
 @intrinsic
 def _bits(typingctx, value):
-    """The bit pattern of a float64 as an int64 (a register move; no memory round trip)."""
+    """The bit pattern of a float64 as an int64 (a register move, no memory round trip)."""
     def codegen(context, builder, signature, args):
         return builder.bitcast(args[0], ir.IntType(64))
     return types.int64(types.float64), codegen
@@ -75,6 +79,76 @@ def _float(typingctx, value):
         return builder.bitcast(args[0], ir.DoubleType())
     return types.float64(types.int64), codegen
 
+
+# --- unit exponentials: the ziggurat of Marsaglia & Tsang (2000) ---------------------------------
+
+def _ziggurat_layers(n: int = 256) -> tuple[float, np.ndarray, np.ndarray, np.ndarray]:
+    """Layers of the ziggurat for f(x) = exp(-x), x >= 0 (Marsaglia & Tsang 2000, J. Stat. Softw. 5(8)).
+
+    n layers of equal area v: the base layer is the box [0, r] x [0, f(r)] plus the tail beyond r
+    (v = r f(r) + f(r), drawn as a box of width x_0 = v / f(r) = r + 1), and layer i >= 1 is the box
+    [0, x_i] x [f(x_i), f(x_{i+1})] with x_1 = r and x_{i+1} = f^-1(v / x_i + f(x_i)). r is the root
+    that makes the top layer close at x_n = 0, found here by bisection (r = 7.69711747... for n = 256,
+    the published value).
+
+    Returns r, the integer thresholds k_i = floor(2^53 x_{i+1} / x_i) (a 53-bit uniform j with
+    j < k_i lies under the curve for sure), the widths x_i 2^-53, and f(x_i) for i = 0..n.
+    """
+    def build(r):
+        v = (r + 1.0) * np.exp(-r)
+        xs = [r + 1.0, r]
+        for _ in range(n - 2):
+            arg = v / xs[-1] + np.exp(-xs[-1])
+            if arg >= 1.0:
+                return xs, 1.0  # the layers reach f = 1 too early: r is too small
+            xs.append(-np.log(arg))
+        return xs, v / xs[-1] + np.exp(-xs[-1]) - 1.0
+    lo, hi = 5.0, 10.0
+    for _ in range(100):
+        mid = 0.5 * (lo + hi)
+        if build(mid)[1] > 0.0:
+            lo = mid
+        else:
+            hi = mid
+    xs, _ = build(hi)
+    x = np.array(xs + [0.0])
+    k = np.floor(x[1:] / x[:-1] * 2.0**53).astype(np.int64)
+    return hi, k, x[:-1] * 2.0**-53, np.exp(-x)
+
+
+# numba freezes global arrays into the compiled code as constants
+_ZIG_R, _ZIG_K, _ZIG_W, _ZIG_F = _ziggurat_layers()
+_MASK53 = np.uint64(2**53 - 1)
+_U56 = np.uint64(56)
+
+
+@numba.njit(inline="always", cache=True, error_model="numpy")
+def _exponential(s0, s1, s2, s3):
+    """One Exp(1) variate by the ziggurat; returns ``(value, s0, s1, s2, s3)``.
+
+    One 64-bit word gives the layer (its top 8 bits, the generator's strongest) and a 53-bit uniform
+    (bits 3..55; xoshiro256+'s three weak low bits are dropped). About 98.9 % of draws are accepted
+    at once with no ``log``; the rest take a tail (r + Exp(1), memoryless) or wedge test and may
+    draw again. The value is exact up to floating point; never -0.0.
+    """
+    while True:
+        r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)
+        i = r >> _U56
+        j = np.int64((r >> _U3) & _MASK53)
+        if j < _ZIG_K[i]:
+            return np.float64(j) * _ZIG_W[i], s0, s1, s2, s3
+        if i == _U0:
+            r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)
+            return _ZIG_R - np.log(to_open0(r)), s0, s1, s2, s3
+        x = np.float64(j) * _ZIG_W[i]
+        r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)
+        f0 = _ZIG_F[i]
+        if f0 + to_unit(r) * (_ZIG_F[i + _U1] - f0) < np.exp(-x):
+            return x, s0, s1, s2, s3
+
+
+# --- the indexed binary min-heap ----------------------------------------------------------------
+# ht[i]: firing time (bits) at heap position i; hr[i]: its reaction; pos[j]: position of reaction j.
 
 @numba.njit(inline="always", cache=True, error_model="numpy")
 def _sift_up(ht, hr, pos, i, key, r):
@@ -129,34 +203,35 @@ def _update(ht, hr, pos, r, key):
         _sift_down(ht, hr, pos, i, key, r)
 
 
+# --- the event loop -----------------------------------------------------------------------------
+
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
-    ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. When
-    ``log_t`` has room, event times, reactions and post-event states are logged.
+    ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. ``prog`` must be
+    built from a dependency graph without self-loops. The ``log_*`` arrays are None (``simulate``:
+    numba then compiles the logging away) or receive event times, reactions and post-event states.
     """
     n_r = rates.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
-    log_cap = log_t.shape[0]
+    log_cap = log_t.shape[0] if log_t is not None else 0
     s0 = state[0]
     s1 = state[1]
     s2 = state[2]
     s3 = state[3]
     x = x0.copy()
     a = np.empty(n_r)
-    unused = np.zeros(n_r)  # E_j, the unit-rate time kept by a reaction whose propensity is 0
-    # heap of (time, reaction) pairs; padded with +inf so that every node has two children
-    size = 2 * n_r + 2
+    unused = np.zeros(n_r)  # E_j, the unit-rate time kept while a_j = 0
+    size = 2 * n_r + 2  # padded with +inf so that every position < R has two children
     ht = np.full(size, _INF_BITS)
     hr = np.zeros(size, np.uint64)
     pos = np.empty(n_r, np.uint64)
     for j in range(n_r):
         e = np.uint64(n_r + 3 * j)
         a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog)
-        r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)
-        draw = -np.log(to_open0(r))
+        draw, s0, s1, s2, s3 = _exponential(s0, s1, s2, s3)
         if a[j] > 0.0:
             ht[j] = _bits(draw / a[j])
         else:
@@ -166,6 +241,9 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
     for i in range(n_r // 2 - 1, -1, -1):  # heapify bottom-up (Floyd)
         u = np.uint64(i)
         _sift_down(ht, hr, pos, u, ht[u], hr[u])
+    # The exponential of event n is drawn during event n - 1: the stream order is unchanged (one
+    # draw per event, in event order) and its latency leaves the event's serial chain.
+    nxt, s0, s1, s2, s3 = _exponential(s0, s1, s2, s3)
     t_sample = times[0] if n_t > 0 else np.inf
     k = 0
     n_ev = 0
@@ -197,35 +275,39 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
                 status = STATUS_NUMERICAL
             q += _U2
         end = q + _U4 * np.uint64(prog[b + _U1])
-        while q < end:
+        while q < end:  # the dependents d != mu: rescale, park or revive (Gibson & Bruck 2000)
             d = np.uint64(prog[q])
             new = propensity(prog[q + _U1], rates[d], np.uint64(prog[q + _U2]), np.uint64(prog[q + _U3]),
                              x, prog)
             old = a[d]
             a[d] = new
             q += _U4
-            if d == mu or new == old:
-                continue  # the fired reaction is redrawn below; an unchanged rate keeps its time
+            if new == old:
+                continue  # an unchanged propensity keeps its firing time
             if old > 0.0:
                 tau = _float(ht[pos[d]])
                 if new > 0.0:
-                    key = (old / new) * (tau - t) + t  # rescaled, not redrawn (Gibson & Bruck 2000)
+                    key = (old / new) * (tau - t) + t
                 else:
                     unused[d] = old * (tau - t)
                     key = np.inf
             else:
-                key = t + unused[d] / new  # was 0, now positive: spend the kept unit-rate time
+                key = t + unused[d] / new
             _update(ht, hr, pos, d, _bits(key))
-        r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)
-        draw = -np.log(to_open0(r))
-        am = a[mu]
+        draw = nxt
+        nxt, s0, s1, s2, s3 = _exponential(s0, s1, s2, s3)
+        e = np.uint64(n_r) + _U3 * mu
+        am = propensity(prog[e], rates[mu], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog)
+        a[mu] = am
         if am > 0.0:
             key = t + draw / am
         else:
             unused[mu] = draw
             key = np.inf
-        _update(ht, hr, pos, mu, _bits(key))
-        if n_ev < log_cap:
+        # mu is still the root: a dependent's new time is >= t and moves up only past a strictly
+        # larger one
+        _sift_down(ht, hr, pos, _U0, _bits(key), mu)
+        if log_t is not None and n_ev < log_cap:
             log_t[n_ev] = t
             log_r[n_ev] = mu
             for s in range(n_s):
@@ -249,12 +331,23 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx,
                rates, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
-    """Run replicate i from ``states[i]`` into ``counts[i]``; logs go to ``log_*`` if they have room."""
+    """Run replicate i from ``states[i]`` into ``counts[i]``; logs go to ``log_*`` unless None."""
     prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx)
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, rates, x0, times, states[i], max_events, counts[i], log_t, log_r, log_x)
         status[i] = st
         events[i] = ev
+
+
+def _without_self_loops(network: Network) -> Network:
+    """The network with each reaction removed from its own row of the dependency graph."""
+    ptr = np.asarray(network.dep_ptr, dtype=np.int64)
+    idx = np.asarray(network.dep_idx, dtype=np.int64)
+    rows = np.repeat(np.arange(len(ptr) - 1), np.diff(ptr))
+    keep = idx != rows
+    counts = np.bincount(rows[keep], minlength=len(ptr) - 1)
+    new_ptr = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
+    return network._replace(dep_ptr=new_ptr, dep_idx=idx[keep].astype(np.int32))
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
@@ -292,8 +385,8 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     counts = np.empty((n, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(n, dtype=np.int8)
     events = np.empty(n, dtype=np.int64)
-    _run_block(*network, rates, x0, times, states, int(max_events), counts, status, events,
-               np.empty(0), np.empty(0, dtype=np.int32), np.empty((0, x0.shape[0]), dtype=np.int64))
+    _run_block(*_without_self_loops(network), rates, x0, times, states, int(max_events), counts, status,
+               events, None, None, None)
     return KernelResult(counts, status, events)
 
 
@@ -313,6 +406,6 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(1, dtype=np.int8)
     events = np.empty(1, dtype=np.int64)
-    _run_block(*network, rates, x0, times, seed_states([seed]), int(max_events), counts, status, events,
-               log_t, log_r, log_x)
+    _run_block(*_without_self_loops(network), rates, x0, times, seed_states([seed]), int(max_events), counts,
+               status, events, log_t, log_r, log_x)
     return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))

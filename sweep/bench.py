@@ -1,8 +1,17 @@
 """Kernel speed benchmark: reaction events per CPU-second on built-in networks.
 
-The four networks mirror a common reference set (isomerization, two-stage gene
+The first four networks mirror a common reference set (isomerization, two-stage gene
 expression, dimerization, a 50-species chain) so that figures can be set beside an
-external C implementation of the direct method measured on the same machine.
+external C implementation of the direct method measured on the same machine. Two more
+are there for the other methods: a 100-reaction chain (many reactions, few touched per
+event: the next reaction method's case) and gene expression at ~10^4 proteins (high copy
+numbers: tau-leaping's case).
+
+Any registered method can be measured. For a method whose ``events`` are not reaction
+events (tau-leaping counts steps; the kernel module says so in ``EVENT_UNIT``), the
+figures are per step, so compare methods by ``replicates_per_cpu_second``; the
+time-averaged ``mean_counts`` of the same replicates show what an approximate method
+gives for that speed.
 """
 
 from __future__ import annotations
@@ -14,6 +23,7 @@ from typing import Callable, Iterable
 
 import numpy as np
 
+from sweep.errors import SpecError
 from sweep.model import Model, compile_network, initial_counts, parse_model, rate_constants
 
 
@@ -43,15 +53,33 @@ NETWORKS: dict[str, tuple[dict, float]] = {
     # chain50, which mirrors the reference set's 98-reaction chain). Many reactions, few touched per
     # event: where the next reaction method's heap beats the direct method's linear search.
     "chain100": (_chain(51), 100.0),
+    # gene_expression with 10x the transcription: mRNA ~ 100, protein ~ 10^4 (Fano factor 10.1),
+    # ~2200 events per time unit; stationary after ~10 protein lifetimes (the grid's second half)
+    "gene_expression_1e4": ({"species": {"M": 0, "P": 0},
+                             "reactions": {"tx": {"reaction": "0 -> M", "rate": 100.0},
+                                           "dm": {"reaction": "M -> 0", "rate": 1.0},
+                                           "tl": {"reaction": "M -> M + P", "rate": 10.0},
+                                           "dp": {"reaction": "P -> 0", "rate": 0.1}}}, 200.0),
 }
 
 
 @dataclass(frozen=True)
 class BenchResult:
+    """Speed of one method on one network.
+
+    ``events_*`` count what the kernel's ``events`` count: reaction events for exact methods,
+    steps (leaps plus exact steps) when ``unit`` is ``"steps"``. ``replicates_per_cpu_second`` is
+    comparable across methods. ``mean_counts`` is the mean count of each species (in model order)
+    over the second half of the time grid and every timed replicate.
+    """
+
     network: str
     method: str
     events_per_cpu_second: float
     events_per_replicate: float
+    unit: str = "events"
+    replicates_per_cpu_second: float = 0.0
+    mean_counts: tuple[float, ...] = ()
 
 
 def measure(method: str = "direct", networks: Iterable[str] | None = None, repeats: int = 5,
@@ -60,16 +88,32 @@ def measure(method: str = "direct", networks: Iterable[str] | None = None, repea
 
     Each batch runs whole replicates until at least ``min_seconds`` of CPU time passed,
     after one warm-up call (which also compiles the kernel).
-    """
-    import kernels
 
-    kernel = kernels.get(method)
+    Raises
+    ------
+    SpecError
+        If ``method`` is not a registered kernel or a network is unknown.
+    """
+    kernel = _kernel(method)
+    unit = getattr(kernel, "EVENT_UNIT", "events")
     out = []
     for name in networks or NETWORKS:
+        if name not in NETWORKS:
+            raise SpecError("sweep bench", "--network", "unknown network", name, f"one of: {', '.join(NETWORKS)}")
         table, t_end = NETWORKS[name]
         model = parse_model(table, f"<bench {name}>")
-        out.append(_measure_one(kernel.simulate, name, method, model, t_end, repeats, min_seconds, samples))
+        out.append(_measure_one(kernel.simulate, name, method, model, t_end, repeats, min_seconds, samples,
+                                unit=unit))
     return out
+
+
+def _kernel(method: str):
+    import kernels
+
+    if method not in kernels.METHODS:
+        raise SpecError("sweep bench", "--method", "unknown method", method,
+                        f"one of: {', '.join(kernels.METHODS)}")
+    return kernels.get(method)
 
 
 def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResult:
@@ -80,18 +124,23 @@ def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResul
     spec = load(path)
     values = spec.values_at(spec.points()[0])
     table = None
-    return _measure_one(kernels.get(spec.method).simulate, f"{Path(path).name} (point 0)", spec.method,
-                        spec.model, spec.times[-1], repeats, min_seconds, len(spec.times), values, table)
+    kernel = kernels.get(spec.method)
+    return _measure_one(kernel.simulate, f"{Path(path).name} (point 0)", spec.method,
+                        spec.model, spec.times[-1], repeats, min_seconds, len(spec.times), values, table,
+                        unit=getattr(kernel, "EVENT_UNIT", "events"))
 
 
 def _measure_one(simulate: Callable, name: str, method: str, model: Model, t_end: float,
-                 repeats: int, min_seconds: float, samples: int, values=None, _=None) -> BenchResult:
+                 repeats: int, min_seconds: float, samples: int, values=None, _=None,
+                 unit: str = "events") -> BenchResult:
     net = compile_network(model)
     values = values if values is not None else model.parameter_values
     args = (net, rate_constants(model, values), initial_counts(model, values), np.linspace(0.0, t_end, samples))
     seed = 0
     simulate(*args, [np.random.SeedSequence(12345, spawn_key=(0, 0))], 10**12)
-    rates, per_rep = [], []
+    rates, per_rep, reps_per_s = [], [], []
+    half = samples // 2
+    count_sum, n_rows = np.zeros(len(args[2])), 0
     for _ in range(repeats):
         events, start, n = 0, time.process_time(), 0
         while True:
@@ -99,9 +148,15 @@ def _measure_one(simulate: Callable, name: str, method: str, model: Model, t_end
             res = simulate(*args, [np.random.SeedSequence(12345, spawn_key=(1, seed))], 10**12)
             events += int(res.events.sum())
             n += 1
+            if (res.status == 0).all():
+                count_sum += res.counts[:, half:, :].sum(axis=(0, 1))
+                n_rows += res.counts.shape[0] * (samples - half)
             elapsed = time.process_time() - start
             if elapsed >= min_seconds:
                 break
         rates.append(events / elapsed)
         per_rep.append(events / n)
-    return BenchResult(name, method, float(np.median(rates)), float(np.mean(per_rep)))
+        reps_per_s.append(n / elapsed)
+    means = tuple(float(v) for v in count_sum / max(n_rows, 1))
+    return BenchResult(name, method, float(np.median(rates)), float(np.mean(per_rep)), unit,
+                       float(np.median(reps_per_s)), means)
