@@ -39,9 +39,11 @@ rejection method for generating Poisson random variables", Insurance: Mathematic
 count beyond int32 (all samples -1). The error-control parameter eps cannot come through the shared
 ``simulate`` signature: it is the keyword ``epsilon`` (default ``DEFAULT_EPSILON``).
 
-Tau-leaping is approximate: see tests/kernels/test_tau_leap.py for the measured accuracy (means
-within 1 % at high copy numbers; the stationary variance of a species whose own decay limits the leap
-is inflated by about 1 / (1 - g tau / 2), e.g. +29 % for immigration-death at mean 1000).
+Tau-leaping is approximate: see tests/kernels/test_tau_leap.py for the measured accuracy. Means are
+within 1 % at high copy numbers. The stationary variance of a species whose own decay limits the leap
+is inflated by about 1 / (1 - g tau / 2), the forward-Euler factor: for immigration-death at mean
+1000, +29 % predicted and +26 % measured at eps = 0.03, +2.8 % at eps = 0.01. At low copy numbers the
+method takes exact steps (no measurable bias, no speed-up).
 """
 
 from __future__ import annotations
