@@ -18,7 +18,7 @@ from typing import Sequence
 import numba
 import numpy as np
 
-from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network, Trace
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -325,9 +325,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     rates, x0, times = _prepare(rates, x0, times)
     states = seed_states(seeds)
     n = states.shape[0]
-    counts = np.empty((n, times.shape[0], x0.shape[0]), dtype=np.int32)
-    status = np.empty(n, dtype=np.int8)
-    events = np.empty(n, dtype=np.int64)
+    counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
     _run_block(*network, rates, x0, times, states, int(max_events), counts, status, events,
                np.empty(0), np.empty(0, dtype=np.int32), np.empty((0, x0.shape[0]), dtype=np.int64))
     return KernelResult(counts, status, events)

@@ -45,7 +45,7 @@ from numba import types
 from numba.extending import intrinsic
 
 from kernels.direct import _prepare, _program, propensity
-from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network, Trace
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -382,9 +382,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     rates, x0, times = _prepare(rates, x0, times)
     states = seed_states(seeds)
     n = states.shape[0]
-    counts = np.empty((n, times.shape[0], x0.shape[0]), dtype=np.int32)
-    status = np.empty(n, dtype=np.int8)
-    events = np.empty(n, dtype=np.int64)
+    counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
     _run_block(*_without_self_loops(network), rates, x0, times, states, int(max_events), counts, status,
                events, None, None, None)
     return KernelResult(counts, status, events)

@@ -55,7 +55,7 @@ import numba
 import numpy as np
 
 from kernels.direct import _prepare, _program, propensity
-from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, empty_result
 from kernels.rng import seed_states, uniform, uniform_open0
 
 DEFAULT_EPSILON = 0.03
@@ -422,8 +422,6 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     rates, x0, times = _prepare(rates, x0, times)
     states = seed_states(seeds)
     n = states.shape[0]
-    counts = np.empty((n, times.shape[0], x0.shape[0]), dtype=np.int32)
-    status = np.empty(n, dtype=np.int8)
-    events = np.empty(n, dtype=np.int64)
+    counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
     _run_block(*network, rates, x0, times, states, int(max_events), float(epsilon), counts, status, events)
     return KernelResult(counts, status, events)
