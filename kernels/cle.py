@@ -57,6 +57,7 @@ import numba
 import numpy as np
 
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+from kernels.ratelaw import callbacks
 from kernels.rng import next_words, seed_states, to_unit
 
 COUNTS_DTYPE = np.float64
@@ -154,8 +155,8 @@ def _step(reactant_idx, reactant_mult, change_idx, change_val, scaled, x, a, h, 
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, x0, times, dt, state,
-             max_events, out):
+def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law, x0, times,
+             dt, state, max_events, out):
     """Simulate one replicate into ``out`` (T, S); return (status, steps, clips)."""
     n_r = scaled.shape[0]
     n_s = x0.shape[0]
@@ -180,7 +181,10 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, x0, ti
         for _ in range(n_steps):
             a0 = 0.0
             for j in range(n_r):
-                a[j] = _propensity(j, scaled[j], reactant_idx, reactant_mult, x)
+                if law_mask[j]:
+                    a[j] = law(j, x.ctypes, rates.ctypes)
+                else:
+                    a[j] = _propensity(j, scaled[j], reactant_idx, reactant_mult, x)
                 a0 += a[j]
             if a0 == 0.0:
                 absorbed = True  # no drift and no noise: the state can never change again
@@ -217,12 +221,12 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, x0, ti
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, scaled, x0, times, dt, states,
-               max_events, counts, status, events, clips):
+def _run_block(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law, x0, times,
+               dt, states, max_events, counts, status, events, clips):
     """Run replicate i from ``states[i]`` into ``counts[i]``."""
     for i in range(states.shape[0]):
-        st, ev, cl = _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, x0, times, dt,
-                              states[i], max_events, counts[i])
+        st, ev, cl = _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law,
+                              x0, times, dt, states[i], max_events, counts[i])
         status[i] = st
         events[i] = ev
         clips[i] = cl
@@ -251,7 +255,8 @@ def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, tim
     ValueError
         If ``dt`` is given and is not a finite number > 0.
     """
-    scaled = _scaled_rates(network, rates)
+    rates = np.ascontiguousarray(rates, dtype=np.float64)
+    scaled = _scaled_rates(network, rates[:network.n_reactions])
     x0 = np.ascontiguousarray(x0, dtype=np.float64)
     times = np.ascontiguousarray(times, dtype=np.float64)
     if dt is None:
@@ -265,7 +270,8 @@ def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, tim
     events = np.empty(n, dtype=np.int64)
     clips = np.empty(n, dtype=np.int64)
     _run_block(network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val,
-               scaled, x0, times, float(dt), states, int(max_events), counts, status, events, clips)
+               scaled, network.law_mask, rates, callbacks(network.law)[1], x0, times, float(dt), states,
+               int(max_events), counts, status, events, clips)
     return KernelResult(counts, status, events), clips
 
 

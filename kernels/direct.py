@@ -19,6 +19,7 @@ import numba
 import numpy as np
 
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
+from kernels.ratelaw import callbacks
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -31,6 +32,7 @@ _K_UNI = 1  # A -> ...        a = c A
 _K_BI = 2  # A + B -> ...     a = c A B
 _K_DIMER = 3  # 2A -> ...     a = c A(A-1)/2
 _K_GEN = 4  # general         a = c prod_s C(X_s, m_s)
+_K_LAW = 5  # custom law      a = law(j, x, p) (``kernels.ratelaw``), p1 = j
 
 # Every index into the kernel's arrays is made unsigned: numba then skips the negative-index
 # wraparound (a compare and a select per access) that it adds for signed indices, and the
@@ -44,13 +46,14 @@ _U4 = np.uint64(4)
 
 
 @numba.njit(inline="always", cache=True, error_model="numpy")
-def propensity(kind, c, p1, p2, x, prog):
+def propensity(kind, c, p1, p2, x, prog, law, rates):
     """Mass-action propensity counting distinct combinations: c * prod C(x_s, m_s).
 
     C(A, 2) = A(A-1)/2 and C(A, 3) = A(A-1)(A-2)/6 (Gillespie 1977). ``kind`` is one of the
     ``_K_*`` codes; ``p1``, ``p2`` (uint64) are the reactant species, or for ``_K_GEN`` ``p1`` is
     the offset in ``prog`` of the reactant list (count, then (species, multiplicity) pairs).
     The closed forms need no ``x < m`` test: with counts >= 0 they are 0 exactly then.
+    A ``_K_LAW`` reaction calls the model's compiled law with its index ``p1``.
     """
     if kind == _K_UNI:
         return c * np.float64(x[p1])
@@ -61,6 +64,8 @@ def propensity(kind, c, p1, p2, x, prog):
         return c * (0.5 * n * (n - 1.0))
     if kind == _K_ZERO:
         return c
+    if kind == _K_LAW:
+        return law(np.int64(p1), x.ctypes, rates.ctypes)
     a = c
     q = p1 + _U1
     end = q + _U2 * np.uint64(prog[p1])
@@ -76,7 +81,7 @@ def propensity(kind, c, p1, p2, x, prog):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx):
+def _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask):
     """Pack the network into one flat int64 array read by the event loop.
 
     Layout (R reactions):
@@ -123,7 +128,10 @@ def _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_i
             q += 2
         nk = n_react[j]
         m0 = reactant_mult[j, 0] if nk > 0 else 0
-        if nk == 0:
+        if law_mask[j]:
+            kind[j] = _K_LAW
+            p1[j] = j
+        elif nk == 0:
             kind[j] = _K_ZERO
         elif nk == 1 and m0 == 1:
             kind[j] = _K_UNI
@@ -161,13 +169,12 @@ def _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_i
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x):
+def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
     ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. When
     ``log_t`` has room, event times, reactions and post-event states are logged.
     """
-    n_r = rates.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
     log_cap = log_t.shape[0]
@@ -184,7 +191,8 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
     a0 = 0.0
     for j in range(n_r):
         e = np.uint64(n_r + 3 * j)
-        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog)
+        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog,
+                          law, rates)
         a0 += a[j]
     t = 0.0
     k = 0
@@ -244,7 +252,7 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
         while q < end:
             d = np.uint64(prog[q])
             new = propensity(prog[q + _U1], rates[d], np.uint64(prog[q + _U2]), np.uint64(prog[q + _U3]),
-                             x, prog)
+                             x, prog, law, rates)
             a0 += new - a[d]
             a[d] = new
             q += _U4
@@ -277,12 +285,14 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx,
-               rates, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
+def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask,
+               rates, law, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]``; logs go to ``log_*`` if they have room."""
-    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx)
+    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask)
+    n_r = reactant_idx.shape[0]
     for i in range(states.shape[0]):
-        st, ev = _run_one(prog, rates, x0, times, states[i], max_events, counts[i], log_t, log_r, log_x)
+        st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
+                          log_x)
         status[i] = st
         events[i] = ev
 
@@ -301,8 +311,9 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     ----------
     network : Network
         The compiled reaction network.
-    rates : float64 (R,)
-        Stochastic rate constants c_j (per-molecule-combination).
+    rates : float64 (R,) or (R + P,)
+        Stochastic rate constants c_j (per-molecule-combination), followed by the parameters
+        the custom rate laws read when ``network.law`` is set.
     x0 : int (S,)
         Initial molecule counts.
     times : float64 (T,)
@@ -326,8 +337,8 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*network, rates, x0, times, states, int(max_events), counts, status, events,
-               np.empty(0), np.empty(0, dtype=np.int32), np.empty((0, x0.shape[0]), dtype=np.int64))
+    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, states, int(max_events),
+               counts, status, events, np.empty(0), np.empty(0, dtype=np.int32), np.empty((0, x0.shape[0]), dtype=np.int64))
     return KernelResult(counts, status, events)
 
 
@@ -347,6 +358,6 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(1, dtype=np.int8)
     events = np.empty(1, dtype=np.int64)
-    _run_block(*network, rates, x0, times, seed_states([seed]), int(max_events), counts, status, events,
-               log_t, log_r, log_x)
+    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, seed_states([seed]),
+               int(max_events), counts, status, events, log_t, log_r, log_x)
     return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))

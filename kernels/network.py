@@ -5,13 +5,16 @@ Kernels see only these arrays (no names, no files). ``sweep.model`` builds them.
 
 from __future__ import annotations
 
-from typing import NamedTuple
+from typing import TYPE_CHECKING, NamedTuple
 
 import numpy as np
 
+if TYPE_CHECKING:
+    from kernels.ratelaw import RateLaw
+
 
 class Network(NamedTuple):
-    """A mass-action reaction network as padded integer arrays.
+    """A reaction network as padded integer arrays, plus its custom rate laws if any.
 
     Attributes
     ----------
@@ -29,6 +32,11 @@ class Network(NamedTuple):
         ``dep_idx[dep_ptr[j]:dep_ptr[j + 1]]`` (Gibson & Bruck 2000).
     dep_idx : int32 (nnz,)
         CSR column indices of the dependency graph.
+    law_mask : int8 (R,)
+        1 where reaction j's propensity is a custom law (``law``), 0 for mass action.
+    law : RateLaw or None
+        The generated callbacks of the custom laws (``kernels.ratelaw``). With laws, a kernel's
+        ``rates`` holds the R mass-action constants followed by the parameters the laws read.
     """
 
     reactant_idx: np.ndarray
@@ -37,10 +45,17 @@ class Network(NamedTuple):
     change_val: np.ndarray
     dep_ptr: np.ndarray
     dep_idx: np.ndarray
+    law_mask: np.ndarray
+    law: RateLaw | None = None
 
     @property
     def n_reactions(self) -> int:
         return int(self.reactant_idx.shape[0])
+
+    @property
+    def arrays(self) -> tuple[np.ndarray, ...]:
+        """The seven arrays, in field order, as the compiled kernels take them."""
+        return tuple(self[:7])
 
 
 class KernelResult(NamedTuple):

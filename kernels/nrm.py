@@ -46,6 +46,7 @@ from numba.extending import intrinsic
 
 from kernels.direct import _prepare, _program, propensity
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
+from kernels.ratelaw import callbacks
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -206,14 +207,13 @@ def _update(ht, hr, pos, r, key):
 # --- the event loop -----------------------------------------------------------------------------
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x):
+def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
     ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. ``prog`` must be
     built from a dependency graph without self-loops. The ``log_*`` arrays are None (``simulate``:
     numba then compiles the logging away) or receive event times, reactions and post-event states.
     """
-    n_r = rates.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
     log_cap = log_t.shape[0] if log_t is not None else 0
@@ -230,7 +230,8 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
     pos = np.empty(n_r, np.uint64)
     for j in range(n_r):
         e = np.uint64(n_r + 3 * j)
-        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog)
+        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog,
+                          law, rates)
         draw, s0, s1, s2, s3 = _exponential(s0, s1, s2, s3)
         if a[j] > 0.0:
             ht[j] = _bits(draw / a[j])
@@ -278,7 +279,7 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
         while q < end:  # the dependents d != mu: rescale, park or revive (Gibson & Bruck 2000)
             d = np.uint64(prog[q])
             new = propensity(prog[q + _U1], rates[d], np.uint64(prog[q + _U2]), np.uint64(prog[q + _U3]),
-                             x, prog)
+                             x, prog, law, rates)
             old = a[d]
             a[d] = new
             q += _U4
@@ -297,7 +298,8 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
         draw = nxt
         nxt, s0, s1, s2, s3 = _exponential(s0, s1, s2, s3)
         e = np.uint64(n_r) + _U3 * mu
-        am = propensity(prog[e], rates[mu], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog)
+        am = propensity(prog[e], rates[mu], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog,
+                          law, rates)
         a[mu] = am
         if am > 0.0:
             key = t + draw / am
@@ -329,12 +331,14 @@ def _run_one(prog, rates, x0, times, state, max_events, out, log_t, log_r, log_x
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx,
-               rates, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
+def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask,
+               rates, law, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]``; logs go to ``log_*`` unless None."""
-    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx)
+    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask)
+    n_r = reactant_idx.shape[0]
     for i in range(states.shape[0]):
-        st, ev = _run_one(prog, rates, x0, times, states[i], max_events, counts[i], log_t, log_r, log_x)
+        st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
+                          log_x)
         status[i] = st
         events[i] = ev
 
@@ -383,8 +387,8 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*_without_self_loops(network), rates, x0, times, states, int(max_events), counts, status,
-               events, None, None, None)
+    _run_block(*_without_self_loops(network).arrays, rates, callbacks(network.law)[0], x0, times, states,
+               int(max_events), counts, status, events, None, None, None)
     return KernelResult(counts, status, events)
 
 
@@ -404,6 +408,6 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(1, dtype=np.int8)
     events = np.empty(1, dtype=np.int64)
-    _run_block(*_without_self_loops(network), rates, x0, times, seed_states([seed]), int(max_events), counts,
-               status, events, log_t, log_r, log_x)
+    _run_block(*_without_self_loops(network).arrays, rates, callbacks(network.law)[0], x0, times,
+               seed_states([seed]), int(max_events), counts, status, events, log_t, log_r, log_x)
     return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))

@@ -41,6 +41,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+from kernels.ratelaw import callbacks
 
 COUNTS_DTYPE = np.float64
 ODE_METHODS = ("LSODA", "BDF")
@@ -50,9 +51,16 @@ ATOL = 1e-8  # molecules: far below one molecule; RTOL governs the large values
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _rate_law(scaled, reactant_idx, reactant_mult, x, a):
-    """a_j = scaled_j * prod_s max(x_s, 0)^m_s, with scaled_j = c_j / prod_s m_s!."""
+def _rate_law(scaled, law_mask, rates, law, reactant_idx, reactant_mult, x, a):
+    """a_j = scaled_j * prod_s max(x_s, 0)^m_s, with scaled_j = c_j / prod_s m_s!.
+
+    A custom law reads the state clipped at 0, like the mass-action terms.
+    """
+    xp = np.maximum(x, 0.0)
     for j in range(scaled.shape[0]):
+        if law_mask[j]:
+            a[j] = law(j, xp.ctypes, rates.ctypes)
+            continue
         v = scaled[j]
         for k in range(reactant_idx.shape[1]):
             s = reactant_idx[j, k]
@@ -63,10 +71,10 @@ def _rate_law(scaled, reactant_idx, reactant_mult, x, a):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _rhs(x, scaled, reactant_idx, reactant_mult, change_idx, change_val):
+def _rhs(x, scaled, law_mask, rates, law, reactant_idx, reactant_mult, change_idx, change_val):
     """dx/dt = sum_j nu_j a_j(x)."""
     a = np.empty(scaled.shape[0])
-    _rate_law(scaled, reactant_idx, reactant_mult, x, a)
+    _rate_law(scaled, law_mask, rates, law, reactant_idx, reactant_mult, x, a)
     dx = np.zeros(x.shape[0])
     for j in range(scaled.shape[0]):
         for l in range(change_idx.shape[1]):
@@ -121,7 +129,8 @@ class _NonFinite(Exception):
 class _System:
     """The right-hand side and Jacobian for ``solve_ivp``, counting evaluations against a cap."""
 
-    def __init__(self, network: Network, scaled: np.ndarray, max_events: int):
+    def __init__(self, network: Network, scaled: np.ndarray, rates: np.ndarray, max_events: int):
+        self.laws = (network.law_mask, rates, callbacks(network.law)[1])
         self.args = (scaled, network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val)
         self.max_events = max_events
         self.calls = 0
@@ -130,7 +139,7 @@ class _System:
         if self.calls >= self.max_events:
             raise _EventCap
         self.calls += 1
-        dx = _rhs(x, *self.args)
+        dx = _rhs(x, self.args[0], *self.laws, *self.args[1:])
         if not np.isfinite(dx).all():
             raise _NonFinite
         return dx
@@ -160,20 +169,23 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
         raise ValueError(f"ode_method must be one of {', '.join(ODE_METHODS)}, got {ode_method!r}")
     x0 = np.ascontiguousarray(x0, dtype=np.float64)
     times = np.ascontiguousarray(times, dtype=np.float64)
-    scaled = _scaled_rates(network, rates)
+    rates = np.ascontiguousarray(rates, dtype=np.float64)
+    scaled = _scaled_rates(network, rates[:network.n_reactions])
     row = np.empty((times.shape[0], x0.shape[0]), dtype=COUNTS_DTYPE)
     row[:] = x0
     later = times > 0.0
     a = np.empty(scaled.shape[0])
-    _rate_law(scaled, network.reactant_idx, network.reactant_mult, x0, a)
+    _rate_law(scaled, network.law_mask, rates, callbacks(network.law)[1], network.reactant_idx,
+              network.reactant_mult, x0, a)
     if not later.any() or not a.any():
         return row, 0, 0  # nothing to integrate, or x0 is an equilibrium (every rate is 0 there)
     # solve_ivp wants strictly increasing t_eval: solve on the distinct times, then spread back
     t_eval, where = np.unique(times[later], return_inverse=True)
-    system = _System(network, scaled, int(max_events))
+    system = _System(network, scaled, rates, int(max_events))
+    # the analytic Jacobian covers mass action only; with custom laws the solver differences
     try:
         sol = solve_ivp(system.rhs, (0.0, float(t_eval[-1])), x0, method=ode_method, t_eval=t_eval,
-                        jac=system.jac, rtol=rtol, atol=atol)
+                        jac=system.jac if network.law is None else None, rtol=rtol, atol=atol)
     except _EventCap:
         row[later] = -1.0
         return row, STATUS_EVENT_CAP, system.calls

@@ -56,6 +56,7 @@ import numpy as np
 
 from kernels.direct import _prepare, _program, propensity
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, empty_result
+from kernels.ratelaw import callbacks
 from kernels.rng import seed_states, uniform, uniform_open0
 
 DEFAULT_EPSILON = 0.03
@@ -200,12 +201,13 @@ def _leap_size(x, a, critical, change_idx, change_val, hor, need, eps, mu, sigma
 # --- the step loop ------------------------------------------------------------------------------
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _propensities(prog, rates, x, a):
-    n_r = rates.shape[0]
+def _propensities(prog, rates, law, x, a):
+    n_r = a.shape[0]
     a0 = 0.0
     for j in range(n_r):
         e = n_r + 3 * j
-        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + 1]), np.uint64(prog[e + 2]), x, prog)
+        a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + 1]), np.uint64(prog[e + 2]), x, prog, law,
+                          rates)
         a0 += a[j]
     return a0
 
@@ -235,7 +237,7 @@ def _fire(x, j, n, change_idx, change_val):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _exact_steps(prog, rates, change_idx, change_val, x, a, times, st, out, t, k, steps, max_steps, n_steps):
+def _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st, out, t, k, steps, max_steps, n_steps):
     """Up to ``n_steps`` direct-method steps (Gillespie 1977); the same sampling as kernels.direct.
 
     Returns (t, k, steps, status, finished): finished when every sample is written or the state is
@@ -243,7 +245,7 @@ def _exact_steps(prog, rates, change_idx, change_val, x, a, times, st, out, t, k
     """
     n_t = times.shape[0]
     for _ in range(n_steps):
-        a0 = _propensities(prog, rates, x, a)
+        a0 = _propensities(prog, rates, law, x, a)
         if a0 <= 0.0:
             return t, k, steps, 0, True
         t_new = t - np.log(uniform_open0(st)) / a0
@@ -292,9 +294,9 @@ def _critical(x, a, change_idx, change_val, n_c, critical):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(prog, rates, change_idx, change_val, hor, need, x0, times, st, max_steps, eps, out):
+def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st, max_steps, eps, out):
     """Simulate one replicate into ``out`` (T, S); return (status, steps)."""
-    n_r = rates.shape[0]
+    n_r = change_idx.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
     x = x0.copy()
@@ -311,7 +313,7 @@ def _run_one(prog, rates, change_idx, change_val, hor, need, x0, times, st, max_
         k, status = _record(x, out, k, t, times, False)
         if status != 0 or k == n_t:
             break
-        a0 = _propensities(prog, rates, x, a)
+        a0 = _propensities(prog, rates, law, x, a)
         if a0 <= 0.0:
             break  # absorbing: hold the state to the end
         a0c, a0n = _critical(x, a, change_idx, change_val, N_CRITICAL, critical)
@@ -355,7 +357,7 @@ def _run_one(prog, rates, change_idx, change_val, hor, need, x0, times, st, max_
             if status != 0:
                 break
         if n_exact > 0:
-            t, k, steps, status, finished = _exact_steps(prog, rates, change_idx, change_val, x, a, times, st,
+            t, k, steps, status, finished = _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st,
                                                          out, t, k, steps, max_steps, n_exact)
             if finished:
                 break
@@ -369,12 +371,12 @@ def _run_one(prog, rates, change_idx, change_val, hor, need, x0, times, st, max_
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx,
-               rates, x0, times, states, max_steps, eps, counts, status, events):
-    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx)
+def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask,
+               rates, law, x0, times, states, max_steps, eps, counts, status, events):
+    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask)
     hor, need = _reactant_orders(reactant_idx, reactant_mult, x0.shape[0])
     for i in range(states.shape[0]):
-        st, ev = _run_one(prog, rates, change_idx, change_val, hor, need, x0, times, states[i], max_steps, eps,
+        st, ev = _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, states[i], max_steps, eps,
                           counts[i])
         status[i] = st
         events[i] = ev
@@ -423,5 +425,6 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*network, rates, x0, times, states, int(max_events), float(epsilon), counts, status, events)
+    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, states, int(max_events),
+               float(epsilon), counts, status, events)
     return KernelResult(counts, status, events)

@@ -1,8 +1,9 @@
-"""Safe arithmetic expressions: derived parameters now, custom rate laws later.
+"""Safe arithmetic expressions: derived parameters and custom rate laws.
 
 An expression is read by Python's own parser (``ast.parse(mode="eval")``) and then checked
 against a whitelist: numbers, names, ``+ - * / **``, unary ``+``/``-``, parentheses, and calls
-of ``min``, ``max``, ``exp``, ``log`` (natural) and ``sqrt``. Everything else (attributes,
+of ``min``, ``max``, ``exp``, ``log`` (natural), ``sqrt`` and the named rate laws ``hill_up(x, vmax,
+K, n)``, ``hill_down(x, vmax, K, n)`` and ``michaelis(s, vmax, Km)``. Everything else (attributes,
 subscripts, other calls, keyword arguments, lambdas, comprehensions, comparisons, strings,
 ``//`` and ``%``, ...) is refused with a ``SpecError`` naming the field. The checked tree is
 copied into plain nested tuples, so evaluation never calls Python's ``eval`` and never sees
@@ -35,8 +36,13 @@ _FUNCTIONS = {
     "sqrt": (np.sqrt, 1, 1),
     "min": (np.minimum, 2, None),
     "max": (np.maximum, 2, None),
+    # the named rate laws, written as their spelled-out forms (kernels.ratelaw compiles the same)
+    "hill_up": (lambda x, vmax, k, n: vmax * x ** n / (k ** n + x ** n), 4, 4),
+    "hill_down": (lambda x, vmax, k, n: vmax * k ** n / (k ** n + x ** n), 4, 4),
+    "michaelis": (lambda s, vmax, km: vmax * s / (km + s), 3, 3),
 }
-_ALLOWED = "numbers, parameter names, + - * / **, parentheses and min, max, exp, log, sqrt"
+_ALLOWED = ("numbers, names, + - * / **, parentheses and min, max, exp, log, sqrt, "
+            "hill_up, hill_down, michaelis")
 
 
 @dataclass(frozen=True)
@@ -131,7 +137,8 @@ def _convert(node: ast.AST, names: list[str], text: str, source: str, field: str
 def _call(node: ast.Call, sub, refuse) -> tuple:
     if not isinstance(node.func, ast.Name) or node.func.id not in _FUNCTIONS:
         called = node.func.id if isinstance(node.func, ast.Name) else _describe(node.func)
-        raise refuse(f"calling {called!r} is", "the functions are min, max, exp, log, sqrt")
+        raise refuse(f"calling {called!r} is",
+                     "the functions are min, max, exp, log, sqrt, hill_up, hill_down, michaelis")
     name = node.func.id
     if node.keywords or any(isinstance(a, ast.Starred) for a in node.args):
         raise refuse(f"keyword or starred arguments to {name}() are")
@@ -194,9 +201,11 @@ def _eval(node: tuple, values: Mapping[str, Any]) -> Any:
     if kind == "neg":
         return np.negative(_eval(node[1], values))
     if kind == "call":
-        function = _FUNCTIONS[node[1]][0]
+        function, fewest, most = _FUNCTIONS[node[1]]
         args = [_eval(a, values) for a in node[2]]
-        return functools.reduce(function, args) if len(args) > 1 else function(args[0])
+        if len(args) == 1 or fewest == most:
+            return function(*args)
+        return functools.reduce(function, args)
     return _OPS[kind](_eval(node[1], values), _eval(node[2], values))
 
 

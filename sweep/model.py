@@ -11,11 +11,19 @@ A model is a TOML table (inline in the spec under ``[model]`` or in its own file
     dimerise      = { reaction = "2 P -> P2", rate = 0.001 }
 
 Rates are stochastic (per-molecule-combination) mass-action constants c_j: the
-propensity of ``2 P -> P2`` is c * P(P-1)/2 (Gillespie 1977).
+propensity of ``2 P -> P2`` is c * P(P-1)/2 (Gillespie 1977). A reaction may instead give its
+whole propensity as an expression (``sweep.expr``'s whitelist plus the named laws)::
+
+    express = { reaction = "0 -> P", propensity = "hill_down(R, vmax, K, n)" }
+
+where species read molecule counts. With ``units = { constants = "molar", volume = 1e-15 }``
+(litres) the constants are deterministic ones in mol/L units, converted with N_A V as
+``concentration_factor`` says, and propensity expressions are read in concentrations.
 """
 
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 from typing import Any, Mapping
@@ -23,21 +31,30 @@ from typing import Any, Mapping
 import numpy as np
 
 from kernels.network import Network
+from sweep import expr, ratelaws
 from sweep.errors import SpecError
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 _TERM = re.compile(r"^(?:(\d+)\s*\*?\s*)?([A-Za-z_][A-Za-z0-9_]*)$")
 _ARROW = "->"
+AVOGADRO = 6.02214076e23  # per mole, exact since the 2019 SI redefinition
+UNIT_SYSTEMS = ("molecules", "molar")
 
 
 @dataclass(frozen=True)
 class Reaction:
-    """One reaction: reactant and product multiplicities and its rate (name or number)."""
+    """One reaction: reactant and product multiplicities, and its mass-action rate (name or
+    number) or, for a custom law, its propensity expression (then ``rate`` is None)."""
 
     name: str
     reactants: tuple[tuple[str, int], ...]
     products: tuple[tuple[str, int], ...]
-    rate: str | float
+    rate: str | float | None
+    propensity: expr.Expr | None = None
+
+    @property
+    def order(self) -> int:
+        return sum(m for _, m in self.reactants)
 
     @property
     def equation(self) -> str:
@@ -46,12 +63,29 @@ class Reaction:
 
 @dataclass(frozen=True)
 class Model:
-    """A validated model. ``initial`` holds counts or parameter names."""
+    """A validated model. ``initial`` holds counts or parameter names.
+
+    ``constants`` is "molecules" (stochastic constants, the default) or "molar" (deterministic
+    constants in mol/L units, converted with ``volume`` in litres).
+    """
 
     species: tuple[str, ...]
     initial: tuple[int | str, ...]
     parameters: tuple[tuple[str, float], ...]
     reactions: tuple[Reaction, ...]
+    constants: str = "molecules"
+    volume: float | None = None
+
+    @property
+    def omega(self) -> float | None:
+        """N_A V, molecules per mol/L, for molar models; None otherwise."""
+        return AVOGADRO * self.volume if self.constants == "molar" else None
+
+    @property
+    def law_parameters(self) -> tuple[str, ...]:
+        """Parameters the custom laws read, in model order (they follow the R constants in ``rates``)."""
+        used = {n for r in self.reactions if r.propensity is not None for n in r.propensity.names}
+        return tuple(name for name, _ in self.parameters if name in used)
 
     @property
     def parameter_values(self) -> dict[str, float]:
@@ -111,7 +145,7 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     SpecError
         Naming the file, the field and the fix.
     """
-    _check_keys(table, {"species", "parameters", "reactions"}, source, prefix.rstrip("."))
+    _check_keys(table, {"species", "parameters", "reactions", "units"}, source, prefix.rstrip("."))
     species_t = _table(table, "species", source, prefix, required=True)
     params_t = _table(table, "parameters", source, prefix, required=False)
     reactions_t = _table(table, "reactions", source, prefix, required=True)
@@ -133,17 +167,56 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
         species.append(name)
         initial.append(_initial(value, param_names, source, field))
 
+    constants, volume = _units(table.get("units"), source, f"{prefix}units")
     reactions = tuple(_reaction(name, spec, set(species), param_names, source, f"{prefix}reactions.{name}")
                       for name, spec in reactions_t.items())
     if not reactions:
         raise SpecError(source, f"{prefix}reactions", "the model has no reactions",
                         fix="add at least one, e.g. decay = { reaction = \"A -> 0\", rate = 0.1 }")
     _check_parameter_uses(dict(parameters), reactions, initial, source, prefix)
-    return Model(tuple(species), tuple(initial), tuple(parameters), reactions)
+    return Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume)
+
+
+def _units(table, source, field) -> tuple[str, float | None]:
+    if table is None:
+        return "molecules", None
+    if not isinstance(table, dict):
+        raise SpecError(source, field, "must be a table", table, 'e.g. units = { constants = "molar", volume = 1e-15 }')
+    _check_keys(table, {"constants", "volume"}, source, field)
+    constants = table.get("constants", "molecules")
+    if constants not in UNIT_SYSTEMS:
+        raise SpecError(source, f"{field}.constants", "unknown unit system", constants,
+                        '"molecules" (stochastic constants, the default) or "molar" (mol/L, needs volume)')
+    volume = table.get("volume")
+    if constants == "molar":
+        if volume is None:
+            raise SpecError(source, f"{field}.volume", "molar constants need the reaction volume",
+                            fix="give the volume in litres, e.g. volume = 1e-15 (1 femtolitre)")
+        volume = _number(volume, source, f"{field}.volume")
+        if volume <= 0:
+            raise SpecError(source, f"{field}.volume", "must be > 0 (litres)", volume)
+    elif volume is not None:
+        raise SpecError(source, f"{field}.volume", "a volume only applies to molar constants", volume,
+                        'add constants = "molar", or remove the volume')
+    return constants, volume
+
+
+def concentration_factor(reaction: Reaction, omega: float) -> float:
+    """Factor turning a deterministic constant k (mol/L units) into the stochastic c.
+
+    c = k * prod_s m_s! / (N_A V)^(order - 1) (Gillespie 1977): c = k/(N_A V) for A + B,
+    c = 2k/(N_A V) for 2A, c = k for A ->, c = k N_A V for 0 ->.
+    """
+    factor = float(omega) ** (1 - reaction.order)
+    for _, m in reaction.reactants:
+        factor *= math.factorial(m)
+    return factor
 
 
 def _check_parameter_uses(values, reactions, initial, source, prefix) -> None:
     for r in reactions:
+        if r.propensity is not None:
+            continue
         if isinstance(r.rate, str) and values[r.rate] < 0:
             raise SpecError(source, f"{prefix}parameters.{r.rate}", f"used as the rate of {r.name!r}, so it must be >= 0",
                             values[r.rate])
@@ -197,15 +270,25 @@ def _reaction(name, spec, species, param_names, source, field) -> Reaction:
     if not isinstance(spec, dict):
         raise SpecError(source, field, "must be a table", spec,
                         'write it as { reaction = "A -> B", rate = "k" }')
-    _check_keys(spec, {"reaction", "rate"}, source, field)
-    if "reaction" not in spec or "rate" not in spec:
-        missing = "reaction" if "reaction" not in spec else "rate"
-        raise SpecError(source, f"{field}.{missing}", "missing", fix='write { reaction = "A -> B", rate = "k" }')
+    _check_keys(spec, {"reaction", "rate", "propensity"}, source, field)
+    if "reaction" not in spec:
+        raise SpecError(source, f"{field}.reaction", "missing", fix='write { reaction = "A -> B", rate = "k" }')
+    if ("rate" in spec) == ("propensity" in spec):
+        raise SpecError(source, field, "give exactly one of rate (mass action) and propensity (a custom law)",
+                        fix='e.g. { reaction = "A -> B", rate = "k" } or '
+                            '{ reaction = "0 -> P", propensity = "hill_down(R, vmax, K, n)" }')
     reactants, products = parse_equation(spec["reaction"], source, f"{field}.reaction")
     for sp, _ in reactants + products:
         if sp not in species:
             raise SpecError(source, f"{field}.reaction", f"unknown species {sp!r}", spec["reaction"],
                             f"declare it under [species]; known: {', '.join(sorted(species))}")
+    if "propensity" in spec:
+        law = expr.parse(spec["propensity"], source, f"{field}.propensity")
+        for n in law.names:
+            if n not in species and n not in param_names:
+                raise SpecError(source, f"{field}.propensity", f"unknown name {n!r} in the rate law of {name!r}",
+                                spec["propensity"], "use species and parameter names of this model")
+        return Reaction(name, reactants, products, None, law)
     rate = spec["rate"]
     if isinstance(rate, str):
         if rate not in param_names:
@@ -234,14 +317,27 @@ def compile_network(model: Model) -> Network:
             reactant_idx[j, i], reactant_mult[j, i] = index[sp], m
         for i, (s, v) in enumerate(sorted(changes[j].items())):
             change_idx[j, i], change_val[j, i] = s, v
-    depends_on = [{index[sp] for sp, _ in r.reactants} for r in model.reactions]
+    # a custom law depends on every species it reads (modifiers included), not only its reactants
+    depends_on = [{index[sp] for sp, _ in r.reactants}
+                  | ({index[n] for n in r.propensity.names if n in index} if r.propensity else set())
+                  for r in model.reactions]
     dep_ptr, dep_idx = [0], []
     for j in range(n_r):
         touched = set(changes[j])
         dep_idx.extend(r for r in range(n_r) if depends_on[r] & touched)
         dep_ptr.append(len(dep_idx))
+    law_mask = np.array([r.propensity is not None for r in model.reactions], dtype=np.int8)
     return Network(reactant_idx, reactant_mult, change_idx, change_val,
-                   np.asarray(dep_ptr, dtype=np.int32), np.asarray(dep_idx, dtype=np.int32))
+                   np.asarray(dep_ptr, dtype=np.int32), np.asarray(dep_idx, dtype=np.int32), law_mask,
+                   _rate_law(model, index))
+
+
+def _rate_law(model: Model, index: Mapping[str, int]):
+    laws = {j: r.propensity.tree for j, r in enumerate(model.reactions) if r.propensity is not None}
+    if not laws:
+        return None
+    params = {name: k for k, name in enumerate(model.law_parameters)}
+    return ratelaws.compile_laws(laws, index, params, len(model.reactions), model.omega)
 
 
 def _net_change(reaction: Reaction, index: Mapping[str, int]) -> dict[int, int]:
@@ -254,9 +350,21 @@ def _net_change(reaction: Reaction, index: Mapping[str, int]) -> dict[int, int]:
 
 
 def rate_constants(model: Model, values: Mapping[str, float]) -> np.ndarray:
-    """Stochastic rate constant of each reaction for one point's parameter values."""
-    return np.array([values[r.rate] if isinstance(r.rate, str) else r.rate for r in model.reactions],
-                    dtype=np.float64)
+    """The kernels' ``rates`` for one point's parameter values.
+
+    The stochastic rate constant of each reaction (converted from molar units if the model
+    says so; 0 for a custom law), followed by the parameters the custom laws read, if any.
+    """
+    omega = model.omega
+    rates = []
+    for r in model.reactions:
+        if r.propensity is not None:
+            rates.append(0.0)
+            continue
+        k = values[r.rate] if isinstance(r.rate, str) else r.rate
+        rates.append(k * concentration_factor(r, omega) if omega is not None else k)
+    rates.extend(values[name] for name in model.law_parameters)
+    return np.array(rates, dtype=np.float64)
 
 
 def initial_counts(model: Model, values: Mapping[str, float]) -> np.ndarray:
@@ -265,5 +373,6 @@ def initial_counts(model: Model, values: Mapping[str, float]) -> np.ndarray:
 
 
 def describe(model: Model) -> list[tuple[str, str, str]]:
-    """Rows (name, equation, rate) in our own notation, for ``sweep check``."""
-    return [(r.name, r.equation, str(r.rate)) for r in model.reactions]
+    """Rows (name, equation, rate or propensity) in our own notation, for ``sweep check``."""
+    return [(r.name, r.equation, f"propensity {r.propensity.text}" if r.propensity else str(r.rate))
+            for r in model.reactions]

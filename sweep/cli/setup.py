@@ -54,6 +54,9 @@ def check(
     tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
     console.print(f"[green]ok[/] {spec_path}  (SHA-256 {spec.sha256[:12]})")
     console.print(f"species: {species}")
+    if model.omega is not None:
+        console.print(f"units: molar constants in a volume of {model.volume:g} L (N_A V = {model.omega:.6g}); "
+                      "mass-action constants become c = k m!/(N_A V)^(order-1), laws read concentrations")
     console.print(reactions)
     design = Table(title=f"Design: {spec.design.kind}", title_justify="left")
     design.add_column("parameter")

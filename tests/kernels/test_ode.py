@@ -166,13 +166,12 @@ class TestOde(KernelConformance):
         """The analytic Jacobian of the mixed network (every reaction order) against central
         differences of the right-hand side at a generic state; relative error < 1e-6."""
         case = mixed_network()
-        scaled = ode._scaled_rates(case.net, case.rates)
-        args = (scaled, case.net.reactant_idx, case.net.reactant_mult, case.net.change_idx, case.net.change_val)
+        system = ode._System(case.net, ode._scaled_rates(case.net, case.rates), case.rates, 10**9)
         x = np.array([7.3, 4.1, 2.2])
         eps = 1e-6
-        numeric = np.column_stack([(ode._rhs(x + eps * e, *args) - ode._rhs(x - eps * e, *args)) / (2 * eps)
+        numeric = np.column_stack([(system.rhs(0.0, x + eps * e) - system.rhs(0.0, x - eps * e)) / (2 * eps)
                                    for e in np.eye(3)])
-        np.testing.assert_allclose(ode._jacobian(x, *args), numeric, rtol=1e-6, atol=1e-8)
+        np.testing.assert_allclose(system.jac(0.0, x), numeric, rtol=1e-6, atol=1e-8)
 
     def test_bdf_agrees_with_lsoda(self):
         times = np.linspace(0.0, 20.0, 41)
