@@ -57,7 +57,7 @@ import numba
 import numpy as np
 
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
-from kernels.ratelaw import callbacks
+from kernels.ratelaw import addresses, call_law
 from kernels.rng import next_words, seed_states, to_unit
 
 COUNTS_DTYPE = np.float64
@@ -181,8 +181,8 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
         for _ in range(n_steps):
             a0 = 0.0
             for j in range(n_r):
-                if law_mask[j]:
-                    a[j] = law(j, x.ctypes, rates.ctypes)
+                if law is not None and law_mask[j]:
+                    a[j] = call_law(law, j, x, rates)
                 else:
                     a[j] = _propensity(j, scaled[j], reactant_idx, reactant_mult, x)
                 a0 += a[j]
@@ -270,7 +270,7 @@ def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, tim
     events = np.empty(n, dtype=np.int64)
     clips = np.empty(n, dtype=np.int64)
     _run_block(network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val,
-               scaled, network.law_mask, rates, callbacks(network.law)[1], x0, times, float(dt), states,
+               scaled, network.law_mask, rates, addresses(network)[1], x0, times, float(dt), states,
                int(max_events), counts, status, events, clips)
     return KernelResult(counts, status, events), clips
 

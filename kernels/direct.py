@@ -19,7 +19,7 @@ import numba
 import numpy as np
 
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
-from kernels.ratelaw import callbacks
+from kernels.ratelaw import addresses, call_law
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -53,7 +53,7 @@ def propensity(kind, c, p1, p2, x, prog, law, rates):
     ``_K_*`` codes; ``p1``, ``p2`` (uint64) are the reactant species, or for ``_K_GEN`` ``p1`` is
     the offset in ``prog`` of the reactant list (count, then (species, multiplicity) pairs).
     The closed forms need no ``x < m`` test: with counts >= 0 they are 0 exactly then.
-    A ``_K_LAW`` reaction calls the model's compiled law with its index ``p1``.
+    A ``_K_LAW`` reaction calls the model's compiled law (``law`` is its address) with its index ``p1``.
     """
     if kind == _K_UNI:
         return c * np.float64(x[p1])
@@ -65,7 +65,9 @@ def propensity(kind, c, p1, p2, x, prog, law, rates):
     if kind == _K_ZERO:
         return c
     if kind == _K_LAW:
-        return law(np.int64(p1), x.ctypes, rates.ctypes)
+        if law is None:  # a mass-action model: numba prunes the call (``kernels.ratelaw.addresses``)
+            return 0.0
+        return call_law(law, p1, x, rates)
     a = c
     q = p1 + _U1
     end = q + _U2 * np.uint64(prog[p1])
@@ -337,7 +339,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, states, int(max_events),
+    _run_block(*network.arrays, rates, addresses(network)[0], x0, times, states, int(max_events),
                counts, status, events, np.empty(0), np.empty(0, dtype=np.int32), np.empty((0, x0.shape[0]), dtype=np.int64))
     return KernelResult(counts, status, events)
 
@@ -358,6 +360,6 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(1, dtype=np.int8)
     events = np.empty(1, dtype=np.int64)
-    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, seed_states([seed]),
+    _run_block(*network.arrays, rates, addresses(network)[0], x0, times, seed_states([seed]),
                int(max_events), counts, status, events, log_t, log_r, log_x)
     return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))

@@ -46,7 +46,7 @@ from numba.extending import intrinsic
 
 from kernels.direct import _prepare, _program, propensity
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
-from kernels.ratelaw import callbacks
+from kernels.ratelaw import addresses
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
@@ -387,7 +387,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*_without_self_loops(network).arrays, rates, callbacks(network.law)[0], x0, times, states,
+    _run_block(*_without_self_loops(network).arrays, rates, addresses(network)[0], x0, times, states,
                int(max_events), counts, status, events, None, None, None)
     return KernelResult(counts, status, events)
 
@@ -408,6 +408,6 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
     status = np.empty(1, dtype=np.int8)
     events = np.empty(1, dtype=np.int64)
-    _run_block(*_without_self_loops(network).arrays, rates, callbacks(network.law)[0], x0, times,
+    _run_block(*_without_self_loops(network).arrays, rates, addresses(network)[0], x0, times,
                seed_states([seed]), int(max_events), counts, status, events, log_t, log_r, log_x)
     return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))

@@ -41,7 +41,7 @@ import numpy as np
 from scipy.integrate import solve_ivp
 
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
-from kernels.ratelaw import callbacks
+from kernels.ratelaw import addresses, call_law
 
 COUNTS_DTYPE = np.float64
 ODE_METHODS = ("LSODA", "BDF")
@@ -58,8 +58,8 @@ def _rate_law(scaled, law_mask, rates, law, reactant_idx, reactant_mult, x, a):
     """
     xp = np.maximum(x, 0.0)
     for j in range(scaled.shape[0]):
-        if law_mask[j]:
-            a[j] = law(j, xp.ctypes, rates.ctypes)
+        if law is not None and law_mask[j]:
+            a[j] = call_law(law, j, xp, rates)
             continue
         v = scaled[j]
         for k in range(reactant_idx.shape[1]):
@@ -130,7 +130,7 @@ class _System:
     """The right-hand side and Jacobian for ``solve_ivp``, counting evaluations against a cap."""
 
     def __init__(self, network: Network, scaled: np.ndarray, rates: np.ndarray, max_events: int):
-        self.laws = (network.law_mask, rates, callbacks(network.law)[1])
+        self.laws = (network.law_mask, rates, addresses(network)[1])
         self.args = (scaled, network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val)
         self.max_events = max_events
         self.calls = 0
@@ -175,7 +175,7 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     row[:] = x0
     later = times > 0.0
     a = np.empty(scaled.shape[0])
-    _rate_law(scaled, network.law_mask, rates, callbacks(network.law)[1], network.reactant_idx,
+    _rate_law(scaled, network.law_mask, rates, addresses(network)[1], network.reactant_idx,
               network.reactant_mult, x0, a)
     if not later.any() or not a.any():
         return row, 0, 0  # nothing to integrate, or x0 is an equilibrium (every rate is 0 there)

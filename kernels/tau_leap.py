@@ -56,7 +56,7 @@ import numpy as np
 
 from kernels.direct import _prepare, _program, propensity
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, empty_result
-from kernels.ratelaw import callbacks
+from kernels.ratelaw import addresses
 from kernels.rng import seed_states, uniform, uniform_open0
 
 DEFAULT_EPSILON = 0.03
@@ -425,6 +425,6 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     states = seed_states(seeds)
     n = states.shape[0]
     counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*network.arrays, rates, callbacks(network.law)[0], x0, times, states, int(max_events),
+    _run_block(*network.arrays, rates, addresses(network)[0], x0, times, states, int(max_events),
                float(epsilon), counts, status, events)
     return KernelResult(counts, status, events)
