@@ -61,6 +61,7 @@ from kernels.ratelaw import addresses, call_law
 from kernels.rng import next_words, seed_states, to_unit
 
 COUNTS_DTYPE = np.float64
+EVENT_UNIT = "steps"  # what ``events`` counts for this method (for reports)
 DEFAULT_STEPS_PER_INTERVAL = 20  # default dt = mean positive sample spacing / 20
 
 _CEIL_SLACK = 1.0 - 1e-12  # 0.5 / 0.025 = 20.000000000000004 must give 20 steps, not 21

@@ -44,6 +44,7 @@ from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Ne
 from kernels.ratelaw import addresses, call_law
 
 COUNTS_DTYPE = np.float64
+EVENT_UNIT = "evaluations"  # what ``events`` counts for this method (for reports)
 ODE_METHODS = ("LSODA", "BDF")
 DEFAULT_ODE_METHOD = "LSODA"
 RTOL = 1e-8

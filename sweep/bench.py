@@ -27,8 +27,8 @@ from sweep.errors import SpecError
 from sweep.model import Model, compile_network, initial_counts, parse_model, rate_constants
 
 
-def _chain(n: int) -> dict:
-    species = {f"S{i}": (1000 if i == 0 else 0) for i in range(n)}
+def _chain(n: int, spread: bool = False) -> dict:
+    species = {f"S{i}": (20 if spread else 1000 if i == 0 else 0) for i in range(n)}
     reactions = {}
     for i in range(n - 1):
         reactions[f"f{i}"] = {"reaction": f"S{i} -> S{i + 1}", "rate": 1.0}
@@ -53,6 +53,10 @@ NETWORKS: dict[str, tuple[dict, float]] = {
     # chain50, which mirrors the reference set's 98-reaction chain). Many reactions, few touched per
     # event: where the next reaction method's heap beats the direct method's linear search.
     "chain100": (_chain(51), 100.0),
+    # the same chain with 20 molecules on every site: every reaction is active from the start, so the
+    # direct method's search runs over half the list per event on average, as in a large network at
+    # steady state (on chain100 the mass stays near the front, which keeps that search short)
+    "chain100_spread": (_chain(51, spread=True), 100.0),
     # gene_expression with 10x the transcription: mRNA ~ 100, protein ~ 10^4 (Fano factor 10.1),
     # ~2200 events per time unit; stationary after ~10 protein lifetimes (the grid's second half)
     "gene_expression_1e4": ({"species": {"M": 0, "P": 0},

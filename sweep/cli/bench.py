@@ -26,11 +26,12 @@ def bench(
     results = measure(method, [n.value for n in network] if network else None, repeats=repeats)
     if spec_path is not None:
         results.append(measure_spec(spec_path, repeats=repeats))
+    unit = results[0].unit if results else "events"  # tau-leaping counts steps, cle steps, ode evaluations
     table = Table(title=f"Kernel speed, one core ({method})", title_justify="left")
     table.add_column("network")
-    table.add_column("events / CPU-s", justify="right")
-    table.add_column("ns / event", justify="right")
-    table.add_column("events / replicate", justify="right")
+    table.add_column(f"{unit} / CPU-s", justify="right")
+    table.add_column(f"ns / {unit.rstrip('s')}", justify="right")
+    table.add_column(f"{unit} / replicate", justify="right")
     for r in results:
         table.add_row(r.network, si(r.events_per_cpu_second), f"{1e9 / r.events_per_cpu_second:.1f}",
                       si(r.events_per_replicate))
