@@ -15,6 +15,7 @@ from sweep.analysis.report import AnalysisResult, analyze, open_analysis
 from sweep.errors import KernelError, SpecError, StoreError, SweepError
 from sweep.export import ExportSummary, export
 from sweep.runner import Progress, RunSummary, Started, run
+from sweep.shard import ShardSummary, run_shard
 from sweep.spec import Spec, load
 from sweep.store import open_dataset as open_results
 from sweep.status import StoreStatus, status, verify
@@ -24,4 +25,5 @@ __all__ = [
     "AnalysisOptions", "AnalysisResult", "ExportSummary", "Threshold", "analyze", "export", "open_analysis",
     "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
     "ReplicateTrace", "StoreStatus", "SweepError", "load", "open_results", "run", "status", "trace", "verify",
+    "ShardSummary", "run_shard",
 ]

@@ -1,24 +1,36 @@
 """One writer per store: a lock file inside the store naming its holder.
 
-The lock is ``<store>/sweep.lock``, created with O_CREAT | O_EXCL (atomic on local and
-NFSv3+ filesystems) and holding JSON: host, pid, the process's own start time, and when
-the run started. A lock whose holder is a dead process on this host (or a live process
+The lock is ``<store>/sweep.lock``, created whole (written to a temporary file, then
+hard-linked to its name: atomic, and refused if the name exists, on local and NFSv3+
+filesystems) and holding JSON: host, pid, the process's own start time, when the run
+started, its role and its Slurm job. A lock whose holder is a dead process on this host (or a live process
 with another start time, i.e. a reused pid) is stale and taken over; a lock from another
-host cannot be checked from here and is only broken on request (``--break-lock``).
+host cannot be checked from here and is only broken on request (``--break-lock``), unless
+it names the Slurm job it ran in: a job that Slurm no longer lists as running is gone.
+
+The same files serve two other purposes (``role``): ``"run"`` is a whole ``sweep run``
+holding the store; ``"shards"`` is a shard briefly holding it to create the store, take its
+claim or fold completion records (others wait for it); and the per-shard claims of
+``sweep.claims`` are lock files of their own, one per shard, with the same stale rules.
 """
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
+import errno
 import json
 import os
 import socket
+import subprocess
+import uuid
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
 import psutil
 
 from sweep.errors import StoreError
+from sweep.walltime import job_id
 
 LOCK_NAME = "sweep.lock"
 
@@ -33,21 +45,26 @@ class Holder:
     pid: int
     process_started: float
     started: str
+    role: str = "run"  # "run": a whole `sweep run`; "shards": a shard's short setup or clean-up
+    job: str = ""  # the holder's Slurm job (``sweep.walltime.job_id``), when it runs in one
 
     def describe(self) -> str:
-        return f"pid {self.pid} on host {self.host}, running since {self.started}"
+        job = f", Slurm job {self.job}" if self.job else ""
+        return f"pid {self.pid} on host {self.host}{job}, running since {self.started}"
 
 
-def _me() -> Holder:
+def me(role: str = "run") -> Holder:
+    """This process as a holder (with its Slurm job id, if any)."""
     return Holder(socket.gethostname(), os.getpid(), psutil.Process().create_time(),
-                  _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"))
+                  _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"), role, job_id())
 
 
-def read(store: Path) -> Holder | None:
+def read(store: Path, name: str = LOCK_NAME) -> Holder | None:
     """The current holder, or None when unlocked. An unreadable lock file reads as a dead holder."""
     try:
-        data = json.loads((store / LOCK_NAME).read_text(encoding="utf-8"))
-        return Holder(str(data["host"]), int(data["pid"]), float(data["process_started"]), str(data["started"]))
+        data = json.loads((store / name).read_text(encoding="utf-8"))
+        return Holder(str(data["host"]), int(data["pid"]), float(data["process_started"]), str(data["started"]),
+                      str(data.get("role", "run")), str(data.get("job", "")))
     except FileNotFoundError:
         return None
     except (ValueError, KeyError, TypeError, OSError):
@@ -59,11 +76,32 @@ def is_stale(holder: Holder) -> bool | None:
     if holder.pid < 0:
         return True
     if holder.host != socket.gethostname():
-        return None
+        return _slurm_job_gone(holder.job) if holder.job else None
     try:
         return abs(psutil.Process(holder.pid).create_time() - holder.process_started) > 1.0
     except psutil.NoSuchProcess:
         return True
+
+
+_LIVE_JOB_STATES = {"RUNNING", "COMPLETING", "CONFIGURING", "SUSPENDED", "STOPPED", "RESIZING", "SIGNALING",
+                    "STAGE_OUT", "REQUEUED", "PENDING", "REQUEUE_HOLD", "REQUEUE_FED"}
+
+
+def _slurm_job_gone(job: str) -> bool | None:
+    """Ask Slurm whether the holder's job still runs: True if it ended, None if Slurm cannot say.
+
+    A job id is never reused while Slurm still lists the job, so a job it lists as ended (or
+    no longer knows: it forgets finished jobs after ``MinJobAge``) cannot hold the lock.
+    """
+    try:
+        out = subprocess.run(["squeue", "-h", "-t", "all", "-j", job, "-o", "%T"], capture_output=True,
+                             text=True, timeout=30)
+    except (OSError, subprocess.SubprocessError):
+        return None  # no Slurm here (or it hangs): cannot tell
+    states = set(out.stdout.split())
+    if out.returncode != 0:
+        return True if "Invalid job id" in out.stderr else None
+    return not (states & _LIVE_JOB_STATES)
 
 
 def acquire(store: Path, break_lock: bool = False) -> Holder:
@@ -76,31 +114,91 @@ def acquire(store: Path, break_lock: bool = False) -> Holder:
     StoreError
         If the lock file cannot be written (e.g. a read-only filesystem).
     """
-    me = _me()
+    holder = me()
+    other = take(store, holder, break_lock)
+    if other is None:
+        return holder
+    if other.pid == -2:
+        raise LockHeld(f"{store}: could not take the lock; another process keeps taking it")
+    stale = is_stale(other)
+    if stale is False and other.role == "shards":
+        raise LockHeld(f"{store}: a shard (`sweep run --shard`) is setting up in this store ({other.describe()}); "
+                       "try again in a moment")
+    if stale is False:
+        raise LockHeld(f"{store}: another `sweep run` is writing this store ({other.describe()}); "
+                       "wait for it to finish or stop it")
+    raise LockHeld(f"{store}: locked by {other.describe()}, which cannot be checked from here; "
+                   "if that run is dead, rerun with --break-lock")
+
+
+def take(folder: Path, holder: Holder, break_lock: bool = False, name: str = LOCK_NAME) -> Holder | None:
+    """Create the lock file ``folder/name`` for ``holder``, taking over a stale one.
+
+    Returns
+    -------
+    Holder or None
+        None once taken; otherwise the live holder (or one on another host that cannot be
+        checked and ``break_lock`` is false). A holder with pid -2 means the file kept
+        changing hands during three attempts.
+
+    Raises
+    ------
+    StoreError
+        If the lock file cannot be written (e.g. a read-only filesystem).
+    """
     for _ in range(3):
-        if _create(store, me):
-            return me
-        holder = read(store)
-        if holder is None:
+        if _create(folder, holder, name):
+            return None
+        other = read(folder, name)
+        if other is None:
             continue  # released between our attempt and the read
-        stale = is_stale(holder)
-        if stale is False:
-            raise LockHeld(f"{store}: another `sweep run` is writing this store ({holder.describe()}); "
-                           "wait for it to finish or stop it")
-        if stale is None and not break_lock:
-            raise LockHeld(f"{store}: locked by {holder.describe()}, which cannot be checked from here; "
-                           "if that run is dead, rerun with --break-lock")
-        _remove(store, holder)
-    raise LockHeld(f"{store}: could not take the lock; another process keeps taking it")
+        stale = is_stale(other)
+        if stale is False or (stale is None and not break_lock):
+            return other
+        _remove(folder, other, name)
+    return Holder("?", -2, 0.0, "?")
 
 
-def _create(store: Path, me: Holder) -> bool:
+def _create(store: Path, me: Holder, name: str = LOCK_NAME) -> bool:
+    """Create the lock file whole, or not at all.
+
+    The content is written to a private temporary file first and hard-linked to the lock's
+    name (``link`` fails if the name exists, atomically, also on NFS): a lock created with
+    O_EXCL and written afterwards is empty for a moment, and a process reading it then would
+    take it for a dead holder's and remove it (seen with four shards starting at once).
+    """
+    target = store / name
+    tmp = store / f".{name}.{socket.gethostname()}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp"
     try:
-        fd = os.open(store / LOCK_NAME, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
+        with open(tmp, "x", encoding="utf-8") as f:
+            json.dump(asdict(me), f)
+            f.flush()
+            os.fsync(f.fileno())
+        try:
+            os.link(tmp, target)
+        except FileExistsError:
+            return False
+        except OSError as exc:
+            if exc.errno not in _NO_HARD_LINKS:
+                raise
+            return _create_exclusive(target, me)
+        return True
+    except OSError as exc:
+        raise StoreError(f"{store}: cannot create the lock file {name}: {exc.strerror}") from exc
+    finally:
+        with contextlib.suppress(OSError):  # e.g. a read-only store: the error above says so
+            tmp.unlink(missing_ok=True)
+
+
+_NO_HARD_LINKS = {errno.EPERM, errno.EOPNOTSUPP, errno.ENOTSUP, errno.EMLINK, errno.EXDEV}
+
+
+def _create_exclusive(target: Path, me: Holder) -> bool:
+    """For file systems without hard links: O_EXCL, then write (briefly empty; see ``_create``)."""
+    try:
+        fd = os.open(target, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644)
     except FileExistsError:
         return False
-    except OSError as exc:
-        raise StoreError(f"{store}: cannot create the lock file: {exc.strerror}") from exc
     with os.fdopen(fd, "w", encoding="utf-8") as f:
         json.dump(asdict(me), f)
         f.flush()
@@ -108,15 +206,29 @@ def _create(store: Path, me: Holder) -> bool:
     return True
 
 
-def _remove(store: Path, expected: Holder) -> None:
-    """Remove the lock only if it still names ``expected`` (narrows the take-over race)."""
-    if read(store) == expected:
+def _remove(store: Path, expected: Holder, name: str = LOCK_NAME) -> None:
+    """Remove the lock only if it still names ``expected``.
+
+    It is first renamed aside (atomic), then checked: if a live holder had taken it over in
+    between, it is linked back, so two processes taking over one stale lock at once cannot
+    delete each other's.
+    """
+    target = store / name
+    if read(store, name) != expected:
+        return
+    aside = store / f".{name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.removed"
+    try:
+        os.rename(target, aside)
+    except FileNotFoundError:
+        return
+    if read(store, aside.name) != expected:
         try:
-            (store / LOCK_NAME).unlink()
-        except FileNotFoundError:
+            os.link(aside, target)  # someone else's lock after all: put it back
+        except OSError:
             pass
+    aside.unlink(missing_ok=True)
 
 
-def release(store: Path, me: Holder) -> None:
+def release(store: Path, me: Holder, name: str = LOCK_NAME) -> None:
     """Give the lock back, if it is still ours."""
-    _remove(store, me)
+    _remove(store, me, name)

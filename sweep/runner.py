@@ -27,13 +27,15 @@ import traceback
 from dataclasses import dataclass, field
 from itertools import islice
 from pathlib import Path
-from typing import Callable, Iterator
+from typing import Any, Callable, Iterator
 
 import numpy as np
 
-from sweep import lock, specdiff, store
+from sweep import claims, lock, specdiff, store
+from sweep.cluster import ClusterConfig
 from sweep.errors import StoreError
 from sweep.model import compile_network, initial_counts, rate_constants
+from sweep.execute import BACKENDS
 from sweep.spec import Spec
 from sweep.tasks import Task, make_tasks, n_blocks
 from sweep.worker import TaskInput, run_task, warm_up
@@ -74,6 +76,7 @@ class Started:
     pending: int
     total: int
     resumed: bool
+    address: str | None = None  # the scheduler's (tls://... when its workers talk over TLS)
 
 
 @dataclass(frozen=True)
@@ -92,6 +95,7 @@ class RunSummary:
     simulating_seconds: float = 0.0
     failed: tuple[FailedTask, ...] = field(default_factory=tuple)
     stopped: str | None = None
+    adaptive: Any = None  # sweep.adaptive.Outcome of a spec with [run.adaptive]
 
     @property
     def events_per_second(self) -> float:
@@ -123,8 +127,8 @@ def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Tas
         that is not a store.
     """
     points = spec.points()
-    tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
-    blocks = n_blocks(spec.replicates, spec.replicates_per_task)
+    tasks = make_tasks(points.shape[0], spec.store_replicates, spec.replicates_per_task)
+    blocks = n_blocks(spec.store_replicates, spec.replicates_per_task)
     path = spec.store
     if store.exists(path) and not fresh:
         _check_same_sweep(spec)
@@ -157,7 +161,13 @@ def _claim(spec: Spec, break_lock: bool) -> lock.Holder:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StoreError(f"{path}: cannot create the store folder: {exc.strerror}") from exc
-    return lock.acquire(path, break_lock)
+    holder = lock.acquire(path, break_lock)
+    try:  # shards (`--shard`) may have written here: refuse while they run, fold their records
+        claims.settle(path, break_lock)
+    except BaseException:
+        lock.release(path, holder)
+        raise
+    return holder
 
 
 def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[TaskInput]:
@@ -175,9 +185,11 @@ def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[T
                         t.start, t.stop, spec.max_events, spec.options)
 
 
-def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None, fresh: bool = False,
-        break_lock: bool = False, on_start: Callable[[Started], None] | None = None,
-        on_progress: Callable[[Progress], None] | None = None) -> RunSummary:
+def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
+        cluster: ClusterConfig | None = None, fresh: bool = False, break_lock: bool = False,
+        on_start: Callable[[Started], None] | None = None,
+        on_progress: Callable[[Progress], None] | None = None,
+        schedule: Callable[[np.ndarray, set[tuple[int, int]]], list[Task]] | None = None) -> RunSummary:
     """Run (or resume) a sweep and return what happened.
 
     Parameters
@@ -188,12 +200,20 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
         Local worker processes (default: one per core). Ignored with ``scheduler``.
     scheduler : str, optional
         Address of an existing Dask scheduler to use instead of a local cluster.
+    cluster : ClusterConfig, optional
+        Run the workers as Slurm jobs (``sweep.execute.slurm``), scaled between
+        ``cluster.min_jobs`` and ``cluster.max_jobs``; see ``sweep.cluster.resolve``.
     fresh : bool
         Delete an existing store at ``spec.store`` and start over.
     break_lock : bool
         Take the store's lock even when it is held by a process on another host.
     on_start, on_progress : callable, optional
         Called once the cluster is up, and after every finished task.
+    schedule : callable, optional
+        ``schedule(done, failed) -> tasks`` picks the tasks to run from the completion record
+        and the (point, block) pairs that failed in this run; it is asked again after each
+        round of tasks until it returns none (``sweep.adaptive``). Default: every task not done.
+        A spec with ``[run.adaptive]`` gets ``sweep.adaptive.run``'s.
 
     Returns
     -------
@@ -209,6 +229,12 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
     -------
     >>> summary = run(load("configs/reporter.toml"), workers=2)
     """
+    if spec.adaptive is not None and schedule is None:
+        from sweep import adaptive  # rounds of replicate blocks until each point meets its target
+
+        return adaptive.run(spec, workers=workers, scheduler=scheduler, cluster=cluster, fresh=fresh,
+                            break_lock=break_lock,
+                            on_start=on_start, on_progress=on_progress)
     began = time.perf_counter()
     holder = _claim(spec, break_lock)
     try:
@@ -216,27 +242,41 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
             points, tasks, done, resumed = prepare_store(spec, fresh)
         except OSError as exc:
             raise StoreError(f"{spec.store}: cannot write the store: {exc}") from exc
-        pending = [t for t in tasks if not done[t.point, t.block]]
+        already = int(done.sum())
+        pending = [t for t in tasks if not done[t.point, t.block]] if schedule is None else schedule(done, set())
+        scheduled = len(pending)
         tally = _Tally()
         simulating = 0.0
         inputs = task_inputs(spec, points, pending)
         first = next(inputs, None)
         if first is not None:
             warm_up(first)
-            backend = importlib.import_module(f"sweep.execute.{'scheduler' if scheduler else 'local'}")
-            with contextlib.ExitStack() as cluster:
+            kind = "slurm" if cluster is not None else "scheduler" if scheduler else "local"
+            backend = importlib.import_module(BACKENDS[kind])
+            with contextlib.ExitStack() as stack:
                 with _sigint_ignored():
-                    client = cluster.enter_context(backend.connect(address=scheduler, workers=workers))
+                    client = stack.enter_context(backend.connect(address=scheduler, workers=workers, cluster=cluster,
+                                                                 store=spec.store))
                 n_workers = len(client.scheduler_info(n_workers=-1)["workers"])
+                # Slurm jobs start after this: size the window for the workers the cluster may grow to
+                slots = max(n_workers, cluster.max_jobs * cluster.workers_per_job if cluster is not None else 0)
                 # every worker imports and loads the cached kernel at once, before the clock starts
                 client.run(warm_up, first)
                 if on_start:
-                    on_start(Started(client.dashboard_link, n_workers, len(pending), len(tasks), resumed))
+                    on_start(Started(client.dashboard_link, n_workers, len(pending), already + len(pending), resumed,
+                                     client.scheduler.address))
                 streaming = time.perf_counter()
-                _stream(client, _chain(first, inputs), max(n_workers, 1), spec.store, done,
-                        Progress(len(tasks) - len(pending), len(tasks)), on_progress, tally)
+                progress = Progress(already, already + len(pending))
+                _stream(client, _chain(first, inputs), max(slots, 1), spec.store, done, progress, on_progress,
+                        tally)
+                while schedule is not None and tally.stopped is None and (
+                        more := schedule(done, {(f.point, f.block) for f in tally.failed})):
+                    scheduled += len(more)
+                    progress.total += len(more)
+                    _stream(client, task_inputs(spec, points, more), max(slots, 1), spec.store, done, progress,
+                            on_progress, tally)
                 simulating = time.perf_counter() - streaming
-        return RunSummary(spec.store, points.shape[0], len(tasks), tally.ran, len(tasks) - len(pending),
+        return RunSummary(spec.store, points.shape[0], already + scheduled, tally.ran, already,
                           tally.events, tally.capped, tally.numerical, time.perf_counter() - began,
                           simulating, tuple(tally.failed), tally.stopped)
     finally:
@@ -274,7 +314,8 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
 
     window = max(4 * n_workers, 16)
     refill = window // 2
-    began, last_flush, dirty = time.perf_counter(), time.perf_counter(), False
+    # progress.elapsed carries over from earlier rounds (sweep.adaptive), so the rate stays per sweep
+    began, last_flush, dirty = time.perf_counter() - progress.elapsed, time.perf_counter(), False
     owner: dict[str, tuple[int, int]] = {}  # future key -> (point, block), to name failures
 
     def submit(batch):

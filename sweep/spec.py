@@ -5,7 +5,8 @@ the frozen ``Spec``. Errors name the file, the dotted field, the bad value and t
 
 Layout of a spec::
 
-    model = "reporter_model.toml"     # a model file (relative to this spec), or a [model] table
+    model = "reporter_model.toml"     # a model file (relative to this spec), or a [model] table;
+                                      # a file ending in .xml or .sbml is read as SBML (sweep.sbml)
 
     [run]
     method = "direct"                 # registered kernel
@@ -15,6 +16,12 @@ Layout of a spec::
     store = "results/reporter.zarr"   # relative to the working directory (default <spec>.zarr)
     max_events = 100_000_000          # event cap per replicate
 
+    [run.adaptive]                    # optional: more replicates where a statistic is imprecise
+    statistic = "fano"                # (see sweep.adaptive)
+    species = "protein"
+    precision = 0.05
+    max_replicates = 5000
+
     [time]
     end = 600.0                       # sample 0..end at `samples` evenly spaced times
     samples = 61                      # or: points = [0, 10, 100]
@@ -23,7 +30,7 @@ Layout of a spec::
     g_p = 0.02
 
     [design]
-    kind = "grid"                     # or lhs, sobol, saltelli, table (see sweep.design)
+    kind = "grid"                     # or lhs, sobol, saltelli, morris, table (see sweep.design)
     [design.vary]                     # full grid over these explicit values
     k_tx = [0.05, 0.1, 0.2]
 
@@ -43,9 +50,12 @@ from typing import Any, Mapping
 import numpy as np
 
 import kernels
+from sweep import adaptive as adaptives
+from sweep import cluster as clusters
 from sweep import design as designs
 from sweep import specdiff
 from sweep import expr as expressions
+from sweep import sbml
 from sweep.errors import SpecError
 from sweep.model import Model, parse_model
 
@@ -53,8 +63,8 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived"}
-_RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options"}
+_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived", "cluster"}
+_RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options", "adaptive"}
 
 
 @dataclass(frozen=True)
@@ -81,6 +91,15 @@ class Spec:
     design: designs.Design
     derived: tuple[tuple[str, expressions.Expr], ...] = ()
     options: tuple[tuple[str, Any], ...] = ()
+    adaptive: adaptives.Adaptive | None = None
+    model_notes: tuple[tuple[str, str], ...] = ()   # SBML import: (element, conversion applied)
+    # [cluster]: batch settings for `--cluster slurm` (sweep.cluster); they do not change the numbers
+    cluster: tuple[tuple[str, Any], ...] = ()
+
+    @property
+    def store_replicates(self) -> int:
+        """Replicates per point the store holds: ``replicates``, or ``[run.adaptive]``'s maximum."""
+        return self.adaptive.max_replicates if self.adaptive is not None else self.replicates
 
     @property
     def content_sha256(self) -> str:
@@ -150,6 +169,40 @@ def load(path: str | Path, store: str | Path | None = None) -> Spec:
     return from_text(text, path, model_text, store)
 
 
+def load_model(path: str | Path) -> tuple[Model, dict[str, float], tuple[tuple[str, expressions.Expr], ...]]:
+    """A model with its parameter values and derived parameters, from a spec, a TOML model or an SBML file.
+
+    For a spec: its model, every parameter at the spec's fixed value (varied ones at the model's
+    own value) and derived ones computed from those; for a model file, the model's own values.
+    Used by ``sweep export-model``.
+
+    Raises
+    ------
+    SpecError
+        As ``load`` does.
+
+    Example
+    -------
+    >>> model, values, derived = load_model("configs/reporter.toml")
+    """
+    path = Path(path)
+    text = _read(path, str(path), "")
+    if sbml.is_sbml(path):
+        imported = sbml.read(text, str(path))
+        model = parse_model(imported.table, str(path))
+        derived = tuple((n, expressions.parse(t, str(path), n)) for n, t in imported.derived)
+        return model, model.parameter_values, derived
+    doc = _parse_toml(text, str(path))
+    if "model" not in doc:
+        model = parse_model(doc, str(path))
+        return model, model.parameter_values, ()
+    spec = load(path)
+    values = dict(spec.fixed)
+    for name, expr in spec.derived:
+        values[name] = float(expressions.evaluate(expr, values))
+    return spec.model, values, spec.derived
+
+
 def from_text(text: str, path: str | Path, model_text: str = "", store: str | Path | None = None) -> Spec:
     """Validate a spec given as text (plus the text of the model file it names).
 
@@ -162,7 +215,10 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     doc = _parse_toml(text, str(path))
     src = str(path)
     _unknown(doc, _TOP_KEYS, src, "")
-    model = _load_model(doc, path, model_text)
+    model, imported = _load_model(doc, path, model_text)
+    if imported is not None:
+        # an SBML model: dotted local-parameter names, and the parameters the import derives
+        doc = sbml.adapt(doc, dict(imported.aliases), dict(imported.derived), src)
     run = _sub(doc, "run", src)
     _unknown(run, _RUN_KEYS, src, "run")
     method = run.get("method", "direct")
@@ -181,6 +237,10 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     max_events = _int(run, "max_events", src, "run", minimum=1, default=DEFAULT_MAX_EVENTS)
     store_path = Path(store) if store is not None else Path(_str(run, "store", src, "run", f"{path.stem}.zarr"))
     times = _times(_sub(doc, "time", src, required=True), src)
+    adaptive = None
+    if "adaptive" in run:
+        adaptive = adaptives.parse(run["adaptive"], replicates, model.species, times,
+                                   method in kernels.DETERMINISTIC, src)
     overrides = _sub(doc, "parameters", src)
     fixed = _fixed(overrides, model, src)
     design = designs.parse(_sub(doc, "design", src), dict(fixed), src)
@@ -191,7 +251,9 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
         hashed += b"\0" + design.option("file_sha256").encode()
     digest = hashlib.sha256(hashed).hexdigest()
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
-                max_events, times, fixed, design, derived, options)
+                max_events, times, fixed, design, derived, options, adaptive,
+                model_notes=imported.notes if imported is not None else (),
+                cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()))
     _check_points(spec, src)
     return spec
 
@@ -233,16 +295,19 @@ def _parse_toml(text: str, src: str) -> dict:
         raise SpecError(src, "", f"TOML syntax error: {exc}", fix="see https://toml.io for the syntax") from exc
 
 
-def _load_model(doc: Mapping[str, Any], path: Path, model_text: str) -> Model:
+def _load_model(doc: Mapping[str, Any], path: Path, model_text: str) -> tuple[Model, sbml.Imported | None]:
     src = str(path)
     entry = doc.get("model")
     if entry is None:
         raise SpecError(src, "model", "missing", fix='add model = "my_model.toml" or a [model] table')
     if isinstance(entry, str):
         model_path = path.parent / entry
-        return parse_model(_parse_toml(model_text, str(model_path)), str(model_path))
+        if sbml.is_sbml(model_path):
+            imported = sbml.read(model_text, str(model_path))
+            return parse_model(imported.table, str(model_path)), imported
+        return parse_model(_parse_toml(model_text, str(model_path)), str(model_path)), None
     if isinstance(entry, dict):
-        return parse_model(entry, src, "model.")
+        return parse_model(entry, src, "model."), None
     raise SpecError(src, "model", "must be a file name or a table", entry)
 
 

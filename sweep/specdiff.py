@@ -1,8 +1,9 @@
 """What changed between the spec a store was made with and the spec given now.
 
 Resuming needs the same sweep. Two specs are the same sweep when their parsed contents
-are equal apart from ``run.store``: comments, spacing, key order and the store's location
-are safe to change by construction; every other change alters which numbers land where.
+are equal apart from ``run.store`` and the ``[cluster]`` table (where the work runs):
+comments, spacing, key order, the store's location and the batch settings are safe to change
+by construction; every other change alters which numbers land where.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ import tomllib
 from typing import Any
 
 _IGNORED = ("run.store",)
+_IGNORED_TABLES = ("cluster.",)  # batch settings (sweep.cluster): where, not what
 
 
 def content(spec_text: str, model_text: str, design_file_sha256: str = "") -> dict[str, Any]:
@@ -21,12 +23,17 @@ def content(spec_text: str, model_text: str, design_file_sha256: str = "") -> di
     A design read from a file (a table of points) enters through that file's SHA-256.
     """
     flat = _flatten(tomllib.loads(spec_text))
-    if model_text:
+    if model_text.lstrip().startswith("<"):
+        # an SBML (XML) model file: any edit to it, even of layout or notes, counts as a change
+        flat["model file SHA-256"] = hashlib.sha256(model_text.encode()).hexdigest()
+    elif model_text:
         flat.update(_flatten(tomllib.loads(model_text), "model file."))
     if design_file_sha256:
         flat["design file SHA-256"] = design_file_sha256
     for key in _IGNORED:
         flat.pop(key, None)
+    for key in [k for k in flat if k.startswith(_IGNORED_TABLES)]:
+        del flat[key]
     return flat
 
 

@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from sweep import lock, store
+from sweep import claims, lock, records, store
 
 
 @dataclass(frozen=True)
@@ -40,11 +40,18 @@ class StoreStatus:
     species: tuple[str, ...]
     writer: lock.Holder | None
     writer_alive: bool | None
+    shards: tuple[claims.Claim, ...] = ()  # claims of `sweep run --shard` processes, live or stale
+    adaptive: dict | None = None  # a [run.adaptive] sweep's rounds so far (sweep.adaptive.Outcome.summary)
+
+    @property
+    def tasks_not_needed(self) -> int:
+        """Tasks an adaptive sweep has not asked for (so far): their points met the target earlier."""
+        return int(self.adaptive.get("tasks_not_needed", 0)) if self.adaptive else 0
 
     @property
     def tasks_pending(self) -> int:
-        """Tasks not done, failed ones included."""
-        return self.tasks_total - self.tasks_done
+        """Tasks not done, failed ones included (an adaptive sweep's: of those it asked for)."""
+        return max(self.tasks_total - self.tasks_done - self.tasks_not_needed, 0)
 
 
 def status(path: str | Path) -> StoreStatus:
@@ -58,12 +65,12 @@ def status(path: str | Path) -> StoreStatus:
     path = Path(path)
     attrs = store.attributes(path)
     g = zarr.open_group(path, mode="r")
-    done = g["done"][:]
+    done = store.read_done(path)  # `done` merged with the records of shards not folded yet
     codes = g["status"][:]
     names = tuple(str(v) for v in g["param"][:])
     params = g["params"][:]
     failed = tuple(FailedPoint(f["point"], f["block"], dict(zip(names, map(float, params[f["point"]]))), f["error"])
-                   for f in attrs.get("failed_tasks", []) if not done[f["point"], f["block"]])
+                   for f in _failures(attrs, path) if not done[f["point"], f["block"]])
     writer = lock.read(path)
     return StoreStatus(
         path=path, points=done.shape[0], replicates=codes.shape[1], tasks_total=done.size,
@@ -72,7 +79,15 @@ def status(path: str | Path) -> StoreStatus:
         spec_sha256=attrs["spec_sha256"], spec_path=attrs.get("spec_path", ""), created=attrs.get("created", ""),
         last_run=attrs.get("last_run"), param_names=names, species=tuple(str(v) for v in g["species"][:]),
         writer=writer, writer_alive=None if writer is None else (not lock.is_stale(writer)
-                                                                 if lock.is_stale(writer) is not None else None))
+                                                                 if lock.is_stale(writer) is not None else None),
+        shards=tuple(claims.list_claims(path)), adaptive=attrs.get("adaptive"))
+
+
+def _failures(attrs: dict, path: Path) -> list[dict]:
+    """Failures in the attributes and in shards' records not folded yet (a shard's are newer)."""
+    by_task = {(f["point"], f["block"]): f for f in attrs.get("failed_tasks", [])}
+    by_task.update({(f["point"], f["block"]): f for f in records.read_failures(path)})
+    return [by_task[k] for k in sorted(by_task)]
 
 
 def verify(path: str | Path, repair: bool = True) -> list[tuple[int, int, str]]:
@@ -94,6 +109,8 @@ def verify(path: str | Path, repair: bool = True) -> list[tuple[int, int, str]]:
     if problems and repair:
         me = lock.acquire(path)
         try:
+            claims.settle(path)  # refuses while shards run; afterwards `done` alone is the record
+            done = store.read_done(path)
             for point, block, _ in problems:
                 done[point, block] = False
             store.write_done(path, done)

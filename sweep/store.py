@@ -38,6 +38,9 @@ from zarr.codecs import BloscCodec
 from sweep import design as designs
 from sweep.errors import StoreError
 from sweep.lock import LOCK_NAME
+from sweep.records import SHARDS_DIR
+from sweep.records import mark as _mark_recorded
+from sweep.records import read_indices as _recorded_by_shards
 
 if TYPE_CHECKING:
     import xarray as xr
@@ -67,7 +70,8 @@ def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     is allowed.
     """
     _clear(path)
-    n_p, n_r, n_t, n_s = points.shape[0], spec.replicates, len(spec.times), len(spec.model.species)
+    # an adaptive sweep's store holds its max_replicates; replicates never run stay -1 (not run)
+    n_p, n_r, n_t, n_s = points.shape[0], spec.store_replicates, len(spec.times), len(spec.model.species)
     rb = spec.replicates_per_task
     g = zarr.open_group(path, mode="a", zarr_format=3)
     g.attrs.update(_attributes(spec))
@@ -105,12 +109,13 @@ def counts_dtype(method: str) -> np.dtype:
 def _clear(path: Path) -> None:
     path.mkdir(parents=True, exist_ok=True)
     for child in path.iterdir():
-        if child.name == LOCK_NAME:
+        # the lock, and another process's lock being created or removed at this moment (sweep.lock)
+        if child.name == LOCK_NAME or child.name.startswith(f".{LOCK_NAME}."):
             continue
         if child.is_dir() and not child.is_symlink():
             shutil.rmtree(child)
         else:
-            child.unlink()
+            child.unlink(missing_ok=True)
 
 
 def consolidate(path: Path) -> None:
@@ -122,6 +127,9 @@ def consolidate(path: Path) -> None:
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", message="Consolidated metadata is currently not part")
         warnings.filterwarnings("ignore", message=f"Object at {LOCK_NAME} is not recognized")
+        warnings.filterwarnings("ignore", message=f"Object at {SHARDS_DIR} is not recognized")
+        # a lock being created or removed by another process at this moment (sweep.lock._create)
+        warnings.filterwarnings("ignore", message=rf"Object at \.{LOCK_NAME}\..* is not recognized")
         zarr.consolidate_metadata(path)
 
 
@@ -232,12 +240,17 @@ def remove_partials(path: Path) -> int:
 
 
 def read_done(path: Path) -> np.ndarray:
-    """The completion record, bool (points, blocks)."""
-    return zarr.open_array(path, path="done", mode="r")[:]
+    """The completion record, bool (points, blocks): ``done`` merged with the shards' records.
+
+    The shards' records are read first: folding them writes ``done`` before it deletes
+    them, so a record that vanished meanwhile is already in the ``done`` read after it.
+    """
+    recorded = _recorded_by_shards(path)
+    return _mark_recorded(zarr.open_array(path, path="done", mode="r")[:], recorded)
 
 
 def write_done(path: Path, done: np.ndarray) -> None:
-    """Replace the completion record (only the client calls this: a single writer)."""
+    """Replace ``done`` (only the lock's holder calls this: a single writer; shards keep records)."""
     zarr.open_array(path, path="done", mode="r+")[:] = done
 
 

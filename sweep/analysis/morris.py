@@ -10,9 +10,9 @@ Effects are taken in the unit cube of the design: each parameter's values are ma
 through its distribution (uniform or log-uniform between ``low`` and ``high`` in the design
 facts), so mu_star is "output change per whole range" and parameters compare on one scale.
 
-Note: ``sweep.design`` has no Morris design yet; this method runs when a store's design kind
-is ``"morris"``, with ``num_levels`` from the design facts (default 4), and on samples from
-``SALib.sample.morris``.
+The points come from the ``morris`` design (``sweep.design.morris``: SALib's trajectories,
+uniform or log-uniform ranges), whose facts record ``num_levels``, the ranges and the
+distributions this module maps back through (``num_levels`` defaults to 4 if missing).
 """
 
 from __future__ import annotations

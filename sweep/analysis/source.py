@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from sweep import lock, store
+from sweep import claims, lock, store
 from sweep.errors import SpecError, StoreError
 
 GROUP = "analysis"
@@ -119,6 +119,10 @@ def check_writable(path: Path) -> None:
     StoreError
         A lock whose holder is alive, or on another host where it cannot be checked.
     """
+    running = [c for c in claims.list_claims(path) if c.live is not False]
+    if running:
+        raise StoreError(f"{path}: shards (`sweep run --shard`) are writing this store ({running[0].describe()}); "
+                         "analyze it when they have finished")
     holder = lock.read(path)
     if holder is None:
         return

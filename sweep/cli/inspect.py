@@ -13,6 +13,19 @@ from sweep.cli.common import EXIT_FAILED_TASKS, console, exits_on_errors
 from sweep.status import verify as verify_store
 
 
+def _adaptive_rows(table: Table, st: sweep.StoreStatus) -> None:
+    """Why points stopped adding replicates (``sweep.adaptive``)."""
+    from sweep.adaptive import describe_states
+
+    summary = st.adaptive
+    table.add_row("adaptive target", summary.get("description", ""))
+    table.add_row("adaptive points", "; ".join(describe_states(summary.get("points", {}), st.replicates)))
+    reps = summary.get("replicates") or {}
+    if reps:
+        table.add_row("replicates per point", f"{reps['min']:,} to {reps['max']:,} (median {reps['median']:,.0f}), "
+                                              f"{reps['total']:,} in all")
+
+
 @exits_on_errors
 def status(
     store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
@@ -23,10 +36,15 @@ def status(
     table = Table(title=f"{st.path}", show_header=False, title_justify="left")
     table.add_column(style="bold")
     table.add_column()
-    pct = 100.0 * st.tasks_done / st.tasks_total if st.tasks_total else 100.0
+    needed = st.tasks_total - st.tasks_not_needed
+    pct = 100.0 * st.tasks_done / needed if needed else 100.0
+    skipped = f"{st.tasks_not_needed:,} not needed (adaptive), " if st.adaptive else ""
     table.add_row("tasks", f"{st.tasks_done:,} done, {len(st.failed):,} failed, "
-                           f"{st.tasks_pending - len(st.failed):,} pending, of {st.tasks_total:,} ({pct:.1f}% done)")
+                           f"{st.tasks_pending - len(st.failed):,} pending, {skipped}of {st.tasks_total:,} "
+                           f"({pct:.1f}% done)")
     table.add_row("points x replicates", f"{st.points:,} x {st.replicates:,}")
+    if st.adaptive:
+        _adaptive_rows(table, st)
     table.add_row("stopped at event cap", f"{st.capped:,} replicates")
     table.add_row("numerical failures", f"{st.numerical:,} replicates")
     table.add_row("method, root seed", f"{st.method}, {st.root_seed}")
@@ -37,6 +55,8 @@ def status(
     if st.writer is not None:
         state = {True: "running now", False: "stale (that process is gone)", None: "on another host"}[st.writer_alive]
         table.add_row("lock", f"{st.writer.describe()}: {state}")
+    for claim in st.shards:
+        table.add_row("shard", claim.describe())
     console.print(table)
     if st.failed:
         failed = Table(title="Failed tasks (a rerun tries them again)", title_justify="left")

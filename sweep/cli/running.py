@@ -13,6 +13,7 @@ from rich.table import Table
 
 import sweep
 from sweep import store as store_mod
+from sweep.cli import clustering, sharding
 from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, si
 
 EXIT_INTERRUPTED = 130  # the shell's convention for a run stopped by SIGINT
@@ -23,14 +24,30 @@ def run(
     spec_path: Annotated[Path, typer.Argument(metavar="SPEC", help="The sweep spec (TOML).")],
     store: Annotated[Path | None, typer.Option(help="Results store; overrides run.store.")] = None,
     workers: Annotated[int | None, typer.Option(min=1, help="Local worker processes (default: one per core).")] = None,
-    scheduler: Annotated[str | None, typer.Option(help="Address of an existing Dask scheduler, e.g. tcp://10.0.0.5:8786.")] = None,
+    scheduler: Annotated[str | None, typer.Option(help="Address of an existing Dask scheduler, e.g. tcp://10.0.0.5:8786, or its scheduler file (JSON).")] = None,
     fresh: Annotated[bool, typer.Option("--fresh", help="Delete the existing store and start over.")] = False,
     yes: Annotated[bool, typer.Option("--yes", "-y", help="Do not ask before deleting with --fresh.")] = False,
     break_lock: Annotated[bool, typer.Option("--break-lock", help="Take the store's lock from a run on another host that is known to be dead.")] = False,
+    shard: Annotated[str | None, typer.Option(metavar="I/N", help="Run only shard I of N (1-based), in this process, with no Dask cluster; shards may run at once on one store.")] = None,
+    time_left: Annotated[str | None, typer.Option(metavar="DURATION", help="With --shard: stop before a task that would not finish within this time (seconds or [D-]HH:MM:SS); default: the Slurm job's time limit.")] = None,
+    cluster: Annotated[clustering.ClusterKind | None, typer.Option(help="Run the Dask workers as batch jobs, scaled with the work (settings: --profile, then the spec's \\[cluster] table, then the flags below).")] = None,
+    profile: Annotated[Path | None, typer.Option(help="With --cluster: site profile, a TOML file with a \\[cluster] table (see configs/slurm_site_example.toml).")] = None,
+    partition: Annotated[str | None, typer.Option(help="With --cluster: Slurm partition.")] = None,
+    account: Annotated[str | None, typer.Option(help="With --cluster: Slurm account to charge.")] = None,
+    walltime: Annotated[str | None, typer.Option(help="With --cluster: time limit of each worker job, HH:MM:SS.")] = None,
+    max_jobs: Annotated[int | None, typer.Option(min=1, help="With --cluster: most worker jobs at once.")] = None,
 ) -> None:
     """Run the sweep; run it again on the same store and it resumes where it stopped."""
+    if shard is not None or time_left is not None:
+        sharding.run_shard(spec_path, store, shard, time_left, break_lock,
+                           others={"--workers": workers, "--scheduler": scheduler, "--fresh": fresh,
+                                   "--cluster": cluster, "--profile": profile})
+        return
     spec = sweep.load(spec_path, store=store)
-    resume = _resume_command(spec_path, spec.store, workers, scheduler)
+    flags = {"partition": partition, "account": account, "walltime": walltime, "max_jobs": max_jobs}
+    batch = clustering.resolve(cluster, profile, spec, flags, workers, scheduler)
+    resume = _resume_command(spec_path, spec.store, workers, scheduler) + (
+        " " + shlex.join(clustering.resume_words(cluster, profile, flags)) if batch else "")
     if fresh and store_mod.exists(spec.store) and not yes:
         if not sys.stdin.isatty():
             errors.print(f"[bold red]error:[/] --fresh would delete {spec.store}; add --yes to confirm")
@@ -44,6 +61,8 @@ def run(
     state = {}
 
     def on_start(started: sweep.Started) -> None:
+        if batch is not None:
+            console.print(f"Dask scheduler: {started.address}", highlight=False)
         if started.resumed:
             console.print(f"resuming: {started.pending:,} of {started.total:,} tasks left")
         if started.dashboard:
@@ -53,11 +72,14 @@ def run(
                                      completed=started.total - started.pending, rate="-")
 
     def on_progress(p: sweep.Progress) -> None:
-        bar.update(state["task"], completed=p.done, rate=si(p.events_per_second))
+        # an adaptive sweep's total grows with each round (sweep.adaptive)
+        bar.update(state["task"], completed=p.done, total=p.total, rate=si(p.events_per_second))
 
+    if batch is not None:
+        clustering.announce(batch, spec.store)
     try:
-        summary = sweep.run(spec, workers=workers, scheduler=scheduler, fresh=fresh, break_lock=break_lock,
-                            on_start=on_start, on_progress=on_progress)
+        summary = sweep.run(spec, workers=workers, scheduler=scheduler, cluster=batch, fresh=fresh,
+                            break_lock=break_lock, on_start=on_start, on_progress=on_progress)
     except KeyboardInterrupt:
         bar.stop()
         errors.print("interrupted before any task ran; nothing was lost")
@@ -81,7 +103,8 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     table.add_column(style="bold")
     table.add_column()
     table.add_row("store", str(summary.store))
-    table.add_row("points x replicates", f"{summary.points:,} x {spec.replicates:,}")
+    table.add_row("points x replicates", f"{summary.points:,} x {spec.replicates:,}" + (
+        f" to {spec.store_replicates:,} (adaptive)" if spec.adaptive else ""))
     left = summary.tasks_total - summary.tasks_run - summary.tasks_skipped
     table.add_row("tasks", f"{summary.tasks_run:,} run, {summary.tasks_skipped:,} already done, "
                            f"{len(summary.failed):,} failed, {left:,} left, of {summary.tasks_total:,}")
@@ -91,6 +114,8 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
                                        f"{si(summary.events / summary.seconds if summary.seconds else 0)} overall")
     table.add_row("stopped at event cap", f"{summary.capped:,} replicates")
     table.add_row("numerical failures", f"{summary.numerical:,} replicates")
+    if summary.adaptive is not None:
+        _adaptive_rows(table, summary.adaptive)
     console.print(table)
     for failure in summary.failed[:20]:
         errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {failure.error}",
@@ -99,6 +124,18 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
         errors.print(f"... and {len(summary.failed) - 20} more; `sweep status {summary.store}` lists them all")
     if summary.complete:
         console.print(f"open it with: [bold]xarray.open_zarr({str(summary.store)!r})[/]", highlight=False)
+
+
+def _adaptive_rows(table: Table, outcome) -> None:
+    """The target and why points stopped adding replicates (``sweep.adaptive.Outcome``)."""
+    from sweep.adaptive import describe_states
+
+    summary = outcome.summary()
+    table.add_row("adaptive target", summary["description"])
+    table.add_row("adaptive points", "; ".join(describe_states(summary["points"], outcome.target.max_replicates)))
+    reps = summary["replicates"]
+    if reps:
+        table.add_row("replicates per point", f"{reps['min']:,} to {reps['max']:,} (median {reps['median']:,.0f})")
 
 
 def _resume_command(spec_path: Path, store: Path, workers: int | None, scheduler: str | None) -> str:

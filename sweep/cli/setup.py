@@ -58,6 +58,8 @@ def check(
         console.print(f"units: molar constants in a volume of {model.volume:g} L (N_A V = {model.omega:.6g}); "
                       "mass-action constants become c = k m!/(N_A V)^(order-1), laws read concentrations")
     console.print(reactions)
+    if spec.model_notes:
+        console.print(_conversions(spec))
     design = Table(title=f"Design: {spec.design.kind}", title_justify="left")
     design.add_column("parameter")
     design.add_column("values")
@@ -78,6 +80,19 @@ def check(
         f"root seed {spec.seed}, event cap {spec.max_events:,}\n"
         f"store {spec.store}"
     )
+    if spec.adaptive is not None:
+        console.print(f"adaptive: more replicates, up to {spec.adaptive.max_replicates:,} per point, until the "
+                      f"{spec.adaptive.description}", highlight=False)
+
+
+def _conversions(spec) -> Table:
+    """What the SBML import converted, element by element (``Spec.model_notes``)."""
+    table = Table(title="Imported from SBML: conversions applied", title_justify="left")
+    table.add_column("element")
+    table.add_column("conversion")
+    for element, text in spec.model_notes:
+        table.add_row(element, text)
+    return table
 
 
 def _values(column) -> str:

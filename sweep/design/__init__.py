@@ -31,6 +31,7 @@ DESIGNS: dict[str, str] = {
     "sobol": "sweep.design.sobol",
     "saltelli": "sweep.design.saltelli",
     "table": "sweep.design.table",
+    "morris": "sweep.design.morris",
 }
 
 # 0xDE5 reads "DES(ign)"; any constant works as long as the key's length differs from the

@@ -55,9 +55,10 @@ class Margin:
             low = None if low is None else low - 0.5
             high = None if high is None else high + 0.5
         if self.distribution == "uniform":
-            x = low + u * (high - low)
+            x = np.clip(low + u * (high - low), low, high)
         elif self.distribution == "log-uniform":
-            x = np.exp(np.log(low) + u * (np.log(high) - np.log(low)))
+            # exp(log) can land an ulp outside the range at u = 0 or 1 (a Morris grid's end levels)
+            x = np.clip(np.exp(np.log(low) + u * (np.log(high) - np.log(low))), low, high)
         elif self.distribution == "normal":
             x = _truncated_normal(u, self.mean, self.sd, low, high)
         else:

@@ -1,4 +1,4 @@
-"""What the sampled designs (``lhs``, ``sobol``, ``saltelli``) share.
+"""What the sampled designs (``lhs``, ``sobol``, ``saltelli``, ``morris``) share.
 
 Each draws an (n, D) sample in the unit cube, maps column j through parameter j's
 distribution (``margins``), and optionally crosses the result with a grid over one or two

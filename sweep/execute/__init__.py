@@ -5,4 +5,5 @@ from __future__ import annotations
 BACKENDS = {
     "local": "sweep.execute.local",
     "scheduler": "sweep.execute.scheduler",
+    "slurm": "sweep.execute.slurm",
 }

@@ -166,7 +166,7 @@ def test_elementary_effects_of_a_known_function():
     """Morris (1991): on a linear function every elementary effect is the slope, so mu* = |slope|
     (per whole range) and sigma = 0; an unused input has mu* = 0 (Campolongo et al. 2007).
     f = 2 x1 + 3 log10(x2) + x4^2 with x1 in [0, 10] (uniform), x2 in [1, 100] (log-uniform): in
-    the unit cube the slopes are 20 and 6. Sample from SALib's Morris sampler (we have no Morris design yet)."""
+    the unit cube the slopes are 20 and 6. Sample straight from SALib's Morris sampler (tests/sweep/test_morris.py uses our design)."""
     from SALib.sample import morris as morris_sample
 
     unit = morris_sample.sample({"num_vars": 4, "names": list("abcd"), "bounds": [[0, 1]] * 4}, 30, num_levels=4, seed=7)

@@ -7,6 +7,8 @@ Published facts checked here, named beside the tests that use them:
   coordinate holds one point, and the first two coordinates form a (0, m, 2)-net (Sobol 1967).
 - Saltelli's scheme: N(2D + 2) model runs with second-order indices, N(D + 2) without
   (Saltelli et al. 2010, as implemented and stated by SALib's ``sobol.sample``).
+- Morris trajectories: r trajectories of D + 1 points on a p-level grid, each step moving one
+  parameter by delta = p / (2 (p - 1)), every parameter once per trajectory (Morris 1991).
 """
 
 from __future__ import annotations
@@ -424,6 +426,72 @@ class TestTable(DesignConformance):
         expect_bad(spec_file, self.body, "design.vary.g", ">= 0")
 
 
+class TestMorris(DesignConformance):
+    body = f"""
+    [design]
+    kind = "morris"
+    trajectories = 6
+    levels = 4
+    [design.vary]
+    k = {LOG_K}
+    g = {{ low = 0.1, high = 1.0 }}
+    Kd = {{ low = 1.0, high = 2.0 }}
+    """
+    names = ("k", "g", "Kd")
+    n_points = 6 * (3 + 1)
+    unknown = '[design]\nkind = "morris"\ntrajectories = 2\n[design.vary]\nnope = { low = 0, high = 1 }\n'
+
+    @staticmethod
+    def unit(points: np.ndarray) -> np.ndarray:
+        """The points back in the unit cube, computed here independently of sweep.analysis."""
+        return np.column_stack([(np.log(points[:, 0]) - np.log(0.01)) / (np.log(10.0) - np.log(0.01)),
+                                (points[:, 1] - 0.1) / 0.9, points[:, 2] - 1.0])
+
+    def test_one_parameter_moves_per_step_by_delta(self, spec):
+        # Morris (1991): within a trajectory each step moves exactly one parameter, by
+        # delta = p / (2 (p - 1)) = 2/3 for p = 4, and every parameter moves exactly once
+        for trajectory in self.unit(spec.points()).reshape(6, 4, 3):
+            steps = np.diff(trajectory, axis=0)
+            moved = np.abs(steps) > 1e-9
+            assert moved.sum(axis=1).tolist() == [1, 1, 1]
+            assert sorted(np.flatnonzero(moved) % 3) == [0, 1, 2]
+            np.testing.assert_allclose(np.abs(steps[moved]), 2 / 3, atol=1e-12)
+
+    def test_points_lie_on_the_level_grid(self, spec):
+        # p = 4 levels: 0, 1/3, 2/3, 1 in the unit cube (Morris 1991)
+        unit = self.unit(spec.points())
+        np.testing.assert_allclose(unit * 3, np.round(unit * 3), atol=1e-9)
+        assert unit.min() >= -1e-12 and unit.max() <= 1 + 1e-12
+
+    def test_describe_keeps_what_the_analysis_needs(self, spec):
+        facts = designs.describe(spec.design)
+        assert facts["num_levels"] == 4 and facts["trajectories"] == 6 and facts["points_per_condition"] == 24
+        assert facts["parameters"]["k"]["distribution"] == "log-uniform"
+        assert (facts["parameters"]["g"]["low"], facts["parameters"]["g"]["high"]) == (0.1, 1.0)
+        assert facts["dists"] == ["log-uniform", "uniform", "uniform"]
+
+    def test_different_seed_different_trajectories(self, spec):
+        assert not np.array_equal(designs.expand(spec.design, 7), designs.expand(spec.design, 8))
+
+    def test_conditions_repeat_the_trajectories(self, spec_file):
+        spec = load(spec_file, self.body + "[design.conditions]\nA0 = [0, 10]\n")
+        points = spec.points()
+        assert spec.param_names == ("A0", "k", "g", "Kd") and points.shape == (48, 4)
+        np.testing.assert_array_equal(points[:24, 1:], points[24:, 1:])
+
+    @pytest.mark.parametrize("table, field, fragment", [
+        ('trajectories = 1\n[design.vary]\nk = { low = 1, high = 2 }', "design.trajectories", "at least 2"),
+        ('trajectories = 4\nlevels = 5\n[design.vary]\nk = { low = 1, high = 2 }', "design.levels", "even"),
+        ('trajectories = 4\n[design.vary]\nk = { distribution = "normal", mean = 1, sd = 0.1, low = 0 }',
+         "design.vary.k.distribution", "grid between low and high"),
+        ('trajectories = 4\n[design.vary]\nA0 = { low = 0, high = 10, integer = true }', "design.vary.A0.integer",
+         "exact grid step"),
+        ('points = 4\n[design.vary]\nk = { low = 1, high = 2 }', "design.points", "unknown"),
+    ])
+    def test_bad_designs_are_refused(self, spec_file, table, field, fragment):
+        expect_bad(spec_file, f'[design]\nkind = "morris"\n{table}\n', field, fragment)
+
+
 def test_unknown_kind(spec_file):
     expect_bad(spec_file, '[design]\nkind = "random"\n', "design.kind", "unknown design", "lhs")
 
@@ -431,7 +499,7 @@ def test_unknown_kind(spec_file):
 def test_every_registered_kind_has_a_conformance_class():
     tested = {cls.__name__ for cls in DesignConformance.__subclasses__()}
     kinds = {"grid": "TestGrid", "lhs": "TestLatinHypercube", "sobol": "TestSobol", "saltelli": "TestSaltelli",
-             "table": "TestTable"}
+             "table": "TestTable", "morris": "TestMorris"}
     assert set(designs.DESIGNS) == set(kinds) and set(kinds.values()) <= tested
 
 
