@@ -44,6 +44,7 @@ class AnalysisResult:
     points: int
     replicates: int
     seconds: float
+    replicates_run: int = -1  # replicates with any result (an adaptive store holds fewer than its capacity)
 
 
 def analyze(path: str | Path, options: AnalysisOptions | None = None) -> AnalysisResult:
@@ -98,7 +99,7 @@ def analyze(path: str | Path, options: AnalysisOptions | None = None) -> Analysi
     written = tables.write(_open_group(path), sensitivity, adequacy, folder)
     return AnalysisResult(path, source.GROUP, tuple(written), str(facts.get("kind")), _method(facts),
                           plan["outputs"], sensitivity, adequacy, ds.sizes["point"], ds.sizes["replicate"],
-                          _time.perf_counter() - started)
+                          _time.perf_counter() - started, int((ds["status"] >= 0).sum()))
 
 
 def open_analysis(path: str | Path, table: str | None = None) -> xr.Dataset:

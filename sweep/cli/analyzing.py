@@ -61,8 +61,11 @@ def analyze(
         result = run_analysis(store, options)
     _sensitivity(result)
     _adequacy(result, options)
-    console.print(f"{result.points:,} points x {result.replicates:,} replicates, design {result.design}, "
-                  f"analysed in {duration(result.seconds)}")
+    capacity = result.points * result.replicates
+    size = (f"{result.points:,} points x {result.replicates:,} replicates" if result.replicates_run in (-1, capacity)
+            else f"{result.points:,} points, {result.replicates_run:,} replicates run (up to {result.replicates:,} "
+                 "per point)")
+    console.print(f"{size}, design {result.design}, analysed in {duration(result.seconds)}")
     console.print(f"results: xarray.open_zarr('{result.store}', group='analysis') "
                   "(and group='analysis/sensitivity', 'analysis/adequacy')", highlight=False, soft_wrap=True)
     console.print(f"tables:  {result.tables[0].parent}/ ({', '.join(p.name for p in result.tables)})",

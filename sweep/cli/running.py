@@ -82,7 +82,9 @@ def run(
                             break_lock=break_lock, on_start=on_start, on_progress=on_progress)
     except KeyboardInterrupt:
         bar.stop()
-        errors.print("interrupted before any task ran; nothing was lost")
+        # between an adaptive sweep's rounds the bar has started: what finished is recorded
+        errors.print("interrupted; every finished task is recorded" if "task" in state
+                     else "interrupted before any task ran; nothing was lost")
         console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
         raise typer.Exit(EXIT_INTERRUPTED) from None
     finally:

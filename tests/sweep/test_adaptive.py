@@ -131,6 +131,7 @@ def test_analysis_and_status_leave_not_run_replicates_out(adaptive_store, tmp_pa
     result = sweep.analyze(store, sweep.AnalysisOptions(statistics=("mean",), precision=EPS, tables=str(tmp_path)))
     rows = result.adequacy
     assert rows["replicates"].tolist() == ran.tolist()
+    assert result.replicates_run == int(ran.sum()) and result.replicates == MOST
     assert rows["meets"].tolist() == [True, True, False]
     st = sweep.status(store)
     assert st.tasks_done == int(np.sum(-(-ran // PER_TASK))) and st.tasks_pending == 0
