@@ -27,22 +27,11 @@ from sweep import records, store, walltime
 from sweep.runner import task_inputs
 from sweep.tasks import make_tasks
 from sweep.worker import run_task, warm_up
+from shared_models import DIMERISING
 
 pytestmark = pytest.mark.slurm
 
-DIMER = """
-[model.species]
-A = 0
-B = 0
-[model.parameters]
-k = 400.0
-g = 1.0
-h = 0.01
-[model.reactions]
-make = { reaction = "0 -> A", rate = "k" }
-loss = { reaction = "A -> 0", rate = "g" }
-pair = { reaction = "2 A -> B", rate = "h" }
-"""
+DIMER = DIMERISING
 # 24 tasks of roughly 0.2-0.5 s each on the 2-core test machine
 SMALL = """
 [run]

@@ -24,22 +24,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 import zarr
+from shared_models import DIMERISING
 
 pytestmark = pytest.mark.slurm
 
-DIMER = """
-[model.species]
-A = 0
-B = 0
-[model.parameters]
-k = 400.0
-g = 1.0
-h = 0.01
-[model.reactions]
-make = { reaction = "0 -> A", rate = "k" }
-loss = { reaction = "A -> 0", rate = "g" }
-pair = { reaction = "2 A -> B", rate = "h" }
-"""
+DIMER = DIMERISING
 # 24 tasks of about 0.5 s each (4.6 ms per replicate at end = 400 on the 2-core test machine)
 SMALL = """
 [run]

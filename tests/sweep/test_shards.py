@@ -27,21 +27,10 @@ import sweep
 from sweep import claims, records, shard, store, walltime
 from sweep.cli import app
 from sweep.lock import LOCK_NAME
+from shared_models import DIMERISING
 
 # 48 tasks of a few tenths of a second each (the model of test_resume.py)
-MODEL = """
-[model.species]
-A = 0
-B = 0
-[model.parameters]
-k = 400.0
-g = 1.0
-h = 0.01
-[model.reactions]
-make = { reaction = "0 -> A", rate = "k" }
-loss = { reaction = "A -> 0", rate = "g" }
-pair = { reaction = "2 A -> B", rate = "h" }
-"""
+MODEL = DIMERISING
 BODY = """
 [run]
 replicates = 240
