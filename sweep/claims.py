@@ -22,14 +22,13 @@ Rules (DEVELOPERS.md, "Shards"):
 from __future__ import annotations
 
 import contextlib
-import os
 import re
 import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator
 
-from sweep import lock, records, store
+from sweep import durable, integrity, lock, records, store
 from sweep.errors import StoreError
 
 # A shard waits this long for another shard's setup or clean-up (each well under a second).
@@ -173,20 +172,30 @@ def fold(path: Path, break_lock: bool = False) -> int:
         return 0
     claims = list_claims(path)
     running = {(c.index, c.count) for c in claims if c.live or (c.live is None and not break_lock)}
-    keep = {records.done_file(path, i, n) for i, n in running} | {records.failed_file(path, i, n) for i, n in running}
+    keep = ({records.done_file(path, i, n) for i, n in running} | {records.failed_file(path, i, n) for i, n in running}
+            | {records.sums_file(path, i, n) for i, n in running})
     files = [f for f in records.done_files(path) if f not in keep]
+    sums_files = [f for f in records.sums_files(path) if f not in keep]
     failed_files = [f for f in records.failed_files(path) if f not in keep]
     gone = [c for c in claims if (c.index, c.count) not in running]
-    if not (files or failed_files or gone):
+    if not (files or failed_files or sums_files or gone):
         return 0
-    done = store.read_done(path)  # includes every record, running shards' too: harmless, they are done
+    try:
+        done = store.read_done(path)  # includes every record, running shards' too: harmless, they are done
+    except store.DamagedDone:
+        integrity.rebuild_done(path)  # from the chunks, the shards' included
+        done = store.read_done(path)
     failures = []
     for f in failed_files:
         failures.extend(records.read_failures_file(f))
+    sums = store.read_checksums(path)  # likewise every shard's recorded checksums
+    if sums is not None:
+        store.write_checksums(path, sums)
+        durable.fsync_tree(path / store.CHECKSUMS)
     store.write_done(path, done)
-    _fsync_tree(path / "done")
+    durable.fsync_tree(path / "done")
     store.record_failures(path, failures, done)
-    for f in files + failed_files:
+    for f in files + failed_files + sums_files:
         f.unlink(missing_ok=True)
     for c in gone:
         lock.release(records.folder(path), c.holder, claim_name(c.index, c.count))
@@ -195,12 +204,3 @@ def fold(path: Path, break_lock: bool = False) -> int:
     store.finish_run(path)  # the attributes changed: consolidate again
     return len(files)
 
-
-def _fsync_tree(folder: Path) -> None:
-    """fsync every file and folder under ``folder`` (``done`` is a handful of files)."""
-    for node in [*folder.rglob("*"), folder]:
-        fd = os.open(node, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)

@@ -12,6 +12,8 @@ Files, in ``<store>/shards/``:
 - ``done-<I>-of-<N>.bin``: little-endian int64 task indices (``point * blocks + block``, the
   task's place in ``sweep.tasks.make_tasks``), appended; a torn last entry (a crash
   mid-append) is ignored;
+- ``sums-<I>-of-<N>.bin``: the same task index followed by the CRC-32C of its three data
+  chunks (the store's ``checksums``), appended before the task's entry in ``done-...``;
 - ``failed-<I>-of-<N>.json``: the tasks this shard's last run failed, with their errors,
   replaced atomically (written to a temporary file and renamed).
 
@@ -26,8 +28,13 @@ from pathlib import Path
 
 import numpy as np
 
+from sweep import durable
+
 SHARDS_DIR = "shards"
 _ENTRY = np.dtype("<i8")
+_SUMS = np.dtype([("task", "<i8"), ("sums", "<u4", (3,)), ("pad", "<u4")])
+# appends never follow a symlink planted in a store someone else prepared
+_APPEND = os.O_WRONLY | os.O_APPEND | os.O_CREAT | os.O_NOFOLLOW
 
 
 def folder(store: Path) -> Path:
@@ -43,17 +50,29 @@ def failed_file(store: Path, index: int, count: int) -> Path:
     return folder(store) / f"failed-{index}-of-{count}.json"
 
 
-def append_done(store: Path, index: int, count: int, tasks: list[int]) -> None:
-    """Append finished task indices to shard ``index/count``'s record, durably.
+def sums_file(store: Path, index: int, count: int) -> Path:
+    return folder(store) / f"sums-{index}-of-{count}.bin"
+
+
+def append_done(store: Path, index: int, count: int, tasks: list[int], sums: list[tuple[int, ...]] | None = None) -> None:
+    """Append finished task indices (and their chunks' checksums) to shard ``index/count``'s records, durably.
 
     One ``write`` of a few bytes with O_APPEND, then fsync; the file's first creation also
-    fsyncs its folder, so the name survives a crash of the machine too.
+    fsyncs its folder, so the name survives a crash of the machine too. The checksums go
+    first, so a task recorded as done always has them.
     """
-    path = done_file(store, index, count)
+    if sums is not None:
+        entries = np.zeros(len(tasks), dtype=_SUMS)
+        entries["task"], entries["sums"] = tasks, sums
+        _append(sums_file(store, index, count), entries.tobytes())
+    _append(done_file(store, index, count), np.asarray(tasks, dtype=_ENTRY).tobytes())
+
+
+def _append(path: Path, data: bytes) -> None:
     new = not path.exists()
-    fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+    fd = os.open(path, _APPEND, 0o644)
     try:
-        os.write(fd, np.asarray(tasks, dtype=_ENTRY).tobytes())
+        os.write(fd, data)
         os.fsync(fd)
     finally:
         os.close(fd)
@@ -62,11 +81,7 @@ def append_done(store: Path, index: int, count: int, tasks: list[int]) -> None:
 
 
 def fsync_dir(path: Path) -> None:
-    fd = os.open(path, os.O_RDONLY)
-    try:
-        os.fsync(fd)
-    finally:
-        os.close(fd)
+    durable.fsync(path)
 
 
 def read_file(path: Path) -> np.ndarray:
@@ -77,6 +92,31 @@ def read_file(path: Path) -> np.ndarray:
         return np.zeros(0, dtype=_ENTRY)
     usable = len(raw) - len(raw) % _ENTRY.itemsize
     return np.frombuffer(raw[:usable], dtype=_ENTRY)
+
+
+def sums_files(store: Path) -> list[Path]:
+    where = folder(store)
+    return sorted(where.glob("sums-*-of-*.bin")) if where.is_dir() else []
+
+
+def read_sums(store: Path) -> np.ndarray:
+    """Every (task, checksums) entry recorded by any shard; a torn tail is dropped."""
+    parts = []
+    for path in sums_files(store):
+        try:
+            raw = path.read_bytes()
+        except FileNotFoundError:
+            continue
+        parts.append(np.frombuffer(raw[:len(raw) - len(raw) % _SUMS.itemsize], dtype=_SUMS))
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=_SUMS)
+
+
+def merge_sums(sums: np.ndarray, recorded: np.ndarray) -> np.ndarray:
+    """Put recorded checksums into a (points, blocks, 3) array, in place; returns it."""
+    flat = sums.reshape(-1, sums.shape[-1])
+    ok = (recorded["task"] >= 0) & (recorded["task"] < flat.shape[0])
+    flat[recorded["task"][ok]] = recorded["sums"][ok]
+    return sums
 
 
 def done_files(store: Path) -> list[Path]:
@@ -104,7 +144,8 @@ def write_failures(store: Path, index: int, count: int, failures: list[dict]) ->
         path.unlink(missing_ok=True)
         return
     tmp = path.with_name(path.name + ".tmp")
-    with open(tmp, "w", encoding="utf-8") as f:
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, 0o644)
+    with os.fdopen(fd, "w", encoding="utf-8") as f:
         json.dump(failures, f)
         f.flush()
         os.fsync(f.fileno())

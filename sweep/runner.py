@@ -31,7 +31,7 @@ from typing import Any, Callable, Iterator
 
 import numpy as np
 
-from sweep import claims, lock, specdiff, store
+from sweep import claims, integrity, lock, store
 from sweep.cluster import ClusterConfig
 from sweep.errors import StoreError
 from sweep.model import compile_network, initial_counts, rate_constants
@@ -77,6 +77,7 @@ class Started:
     total: int
     resumed: bool
     address: str | None = None  # the scheduler's (tls://... when its workers talk over TLS)
+    repaired: tuple[str, ...] = ()  # what was mended in the store before the run (sweep.integrity)
 
 
 @dataclass(frozen=True)
@@ -96,6 +97,7 @@ class RunSummary:
     failed: tuple[FailedTask, ...] = field(default_factory=tuple)
     stopped: str | None = None
     adaptive: Any = None  # sweep.adaptive.Outcome of a spec with [run.adaptive]
+    repaired: tuple[str, ...] = ()  # what was mended in the store before the run (sweep.integrity)
 
     @property
     def events_per_second(self) -> float:
@@ -117,8 +119,38 @@ class _Tally:
     stopped: str | None = None
 
 
-def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Task], np.ndarray, bool]:
-    """Create the store, or reopen it to resume. Returns points, all tasks, done, resumed.
+@dataclass
+class Record:
+    """The completion record the client keeps: ``done`` and the checksums of each done task's chunks."""
+
+    done: np.ndarray
+    sums: np.ndarray
+
+    def mark(self, point: int, block: int, sums: tuple[int, ...]) -> None:
+        if sums:
+            self.sums[point, block] = sums
+        self.done[point, block] = True
+
+    def flush(self, path: Path) -> None:
+        """Checksums first: a task flagged done always has them on disk."""
+        store.write_checksums(path, self.sums)
+        store.write_done(path, self.done)
+
+
+@dataclass(frozen=True)
+class Prepared:
+    points: np.ndarray
+    tasks: list[Task]
+    record: Record
+    resumed: bool
+    repaired: tuple[str, ...] = ()  # what `integrity.mend` rewrote before the run
+
+
+def prepare_store(spec: Spec, fresh: bool = False) -> Prepared:
+    """Create the store, or reopen it to resume (the caller holds the lock).
+
+    A store whose creation was interrupted is rebuilt; a resumed one is checked to be this
+    sweep's, its symlinks refused, and what follows from the spec or the chunks mended.
 
     Raises
     ------
@@ -130,39 +162,37 @@ def prepare_store(spec: Spec, fresh: bool = False) -> tuple[np.ndarray, list[Tas
     tasks = make_tasks(points.shape[0], spec.store_replicates, spec.replicates_per_task)
     blocks = n_blocks(spec.store_replicates, spec.replicates_per_task)
     path = spec.store
+    integrity.refuse_symlinks(path)
     if store.exists(path) and not fresh:
-        _check_same_sweep(spec)
+        check_same_sweep(spec, points)
+        mended = integrity.mend(spec, points)
         store.remove_partials(path)
-        return points, tasks, store.read_done(path), True
+        sums = store.read_checksums(path)
+        if sums is None:  # a store from before checksums were recorded: record them from now on
+            sums = np.zeros((points.shape[0], blocks, len(store.DATA_ARRAYS)), dtype=np.uint32)
+        return Prepared(points, tasks, Record(store.read_done(path), sums), True, tuple(mended.describe()))
     store.create(path, spec, points, blocks)
-    return points, tasks, np.zeros((points.shape[0], blocks), dtype=bool), False
+    return Prepared(points, tasks, Record(np.zeros((points.shape[0], blocks), dtype=bool),
+                                          np.zeros((points.shape[0], blocks, len(store.DATA_ARRAYS)), dtype=np.uint32)),
+                    False)
 
 
-def _check_same_sweep(spec: Spec) -> None:
-    attrs = store.attributes(spec.store)
-    if attrs.get("content_sha256") == spec.content_sha256:
-        return
-    old = (attrs.get("spec", ""), attrs.get("model", ""), attrs.get("design_file_sha256", ""))
-    new = (spec.text, spec.model_text, spec.design.option("file_sha256") or "")
-    listed = specdiff.changes(old, new) or ["(the spec text differs)"]
-    raise StoreError(f"{spec.store}: holds a sweep made with a different spec, so it cannot be resumed; "
-                     "changed:\n  " + "\n  ".join(listed) +
-                     "\nundo the changes, use another --store, or start over with --fresh")
+def check_same_sweep(spec: Spec, points: np.ndarray | None = None) -> None:
+    """Refuse a store made by another sweep (``sweep.integrity.check_same_sweep``)."""
+    integrity.check_same_sweep(spec, spec.points() if points is None else points)
 
 
 def _claim(spec: Spec, break_lock: bool) -> lock.Holder:
     """Make sure the store path can hold a store, then take its lock."""
     path = spec.store
-    if path.exists() and not store.exists(path):
-        entries = [p.name for p in path.iterdir()] if path.is_dir() else ["(a file)"]
-        if [e for e in entries if e != lock.LOCK_NAME]:
-            raise StoreError(f"{path}: exists and is not a results store; choose another --store")
+    store.check_claimable(path)
     try:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StoreError(f"{path}: cannot create the store folder: {exc.strerror}") from exc
     holder = lock.acquire(path, break_lock)
     try:  # shards (`--shard`) may have written here: refuse while they run, fold their records
+        store.check_claimable(path)  # again under the lock: another process may have created something
         claims.settle(path, break_lock)
     except BaseException:
         lock.release(path, holder)
@@ -239,9 +269,11 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
     holder = _claim(spec, break_lock)
     try:
         try:
-            points, tasks, done, resumed = prepare_store(spec, fresh)
+            prepared = prepare_store(spec, fresh)
         except OSError as exc:
             raise StoreError(f"{spec.store}: cannot write the store: {exc}") from exc
+        points, tasks, record, resumed = prepared.points, prepared.tasks, prepared.record, prepared.resumed
+        done = record.done
         already = int(done.sum())
         pending = [t for t in tasks if not done[t.point, t.block]] if schedule is None else schedule(done, set())
         scheduled = len(pending)
@@ -264,21 +296,24 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
                 client.run(warm_up, first)
                 if on_start:
                     on_start(Started(client.dashboard_link, n_workers, len(pending), already + len(pending), resumed,
-                                     client.scheduler.address))
+                                     client.scheduler.address, prepared.repaired))
                 streaming = time.perf_counter()
                 progress = Progress(already, already + len(pending))
-                _stream(client, _chain(first, inputs), max(slots, 1), spec.store, done, progress, on_progress,
+                _stream(client, _chain(first, inputs), max(slots, 1), spec.store, record, progress, on_progress,
                         tally)
                 while schedule is not None and tally.stopped is None and (
                         more := schedule(done, {(f.point, f.block) for f in tally.failed})):
                     scheduled += len(more)
                     progress.total += len(more)
-                    _stream(client, task_inputs(spec, points, more), max(slots, 1), spec.store, done, progress,
+                    _stream(client, task_inputs(spec, points, more), max(slots, 1), spec.store, record, progress,
                             on_progress, tally)
                 simulating = time.perf_counter() - streaming
+        elif prepared.repaired:
+            record.flush(spec.store)
+            store.finish_run(spec.store)
         return RunSummary(spec.store, points.shape[0], already + scheduled, tally.ran, already,
                           tally.events, tally.capped, tally.numerical, time.perf_counter() - began,
-                          simulating, tuple(tally.failed), tally.stopped)
+                          simulating, tuple(tally.failed), tally.stopped, repaired=prepared.repaired)
     finally:
         lock.release(spec.store, holder)
 
@@ -307,7 +342,7 @@ def _chain(first, rest):
     yield from rest
 
 
-def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, done: np.ndarray,
+def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, record: Record,
             progress: Progress, on_progress, tally: _Tally) -> None:
     """Keep a bounded window of tasks in flight and record each completion."""
     from distributed import as_completed
@@ -335,7 +370,8 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
                 tally.failed.append(FailedTask(point, block, _error_text(exc)))
                 progress.failed += 1
             else:
-                done[point, block] = dirty = True
+                record.mark(point, block, result.checksums)
+                dirty = True
                 progress.done += 1
                 progress.events += result.events
                 tally.events += result.events
@@ -345,7 +381,7 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
             if flights.count() <= window - refill and (batch := list(islice(inputs, refill))):
                 flights.update(submit(batch))
             if dirty and time.perf_counter() - last_flush >= FLUSH_SECONDS:
-                store.write_done(path, done)
+                record.flush(path)
                 last_flush, dirty = time.perf_counter(), False
             progress.elapsed = time.perf_counter() - began
             if on_progress:
@@ -356,15 +392,15 @@ def _stream(client, inputs: Iterator[TaskInput], n_workers: int, path: Path, don
         in_flight = list(flights.futures)
         if in_flight:
             client.cancel(in_flight)  # their chunks may be half-way; they are not marked done
-        _record(path, done, tally)
+        _record(path, record, tally)
 
 
-def _record(path: Path, done: np.ndarray, tally: _Tally) -> None:
+def _record(path: Path, record: Record, tally: _Tally) -> None:
     """Flush the completion record and the failures; a disk error here only costs re-runs."""
     try:
-        store.write_done(path, done)
+        record.flush(path)
         store.record_failures(path, [{"point": f.point, "block": f.block, "error": f.error} for f in tally.failed],
-                              done)
+                              record.done)
         store.finish_run(path)
     except OSError as exc:
         note = f"could not record the last completions ({exc.strerror or exc}); those tasks will run again"

@@ -25,9 +25,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Iterator
 
-from sweep import claims, records, store
+from sweep import claims, integrity, records, store
 from sweep.errors import SpecError, StoreError
-from sweep.runner import TASK_RETRIES, FailedTask, Progress, _check_same_sweep, _error_text, _is_disk_error, task_inputs
+from sweep.runner import TASK_RETRIES, FailedTask, Progress, _error_text, _is_disk_error, check_same_sweep, task_inputs
 from sweep.spec import Spec
 from sweep.tasks import Task, make_tasks, n_blocks
 from sweep.walltime import Budget
@@ -150,10 +150,13 @@ def run_shard(spec: Spec, index: int, count: int, *, time_left: float | None = N
     tasks = make_tasks(points.shape[0], spec.store_replicates, spec.replicates_per_task)
     blocks = n_blocks(spec.store_replicates, spec.replicates_per_task)
     with claims.holding_lock(path, break_lock):
-        _refuse_foreign(path)  # checked under the lock: another shard may be creating the store
+        store.check_claimable(path)  # checked under the lock: another shard may be creating the store
+        integrity.refuse_symlinks(path)
         try:
             if store.exists(path):
-                _check_same_sweep(spec)
+                check_same_sweep(spec, points)
+                if not claims.list_claims(path):  # nobody else writes: mend what follows from spec and chunks
+                    integrity.mend(spec, points)
             else:
                 store.create(path, spec, points, blocks)
         except OSError as exc:
@@ -217,7 +220,7 @@ def _loop(spec, points, pending, blocks, index, count, budget: Budget, tally: _S
             tally.failed.append(FailedTask(task.point, task.block, _error_text(exc)))
             progress.failed += 1
         else:
-            records.append_done(path, index, count, [task_index(task, blocks)])
+            records.append_done(path, index, count, [task_index(task, blocks)], [result.checksums])
             tally.ran += 1
             tally.events += result.events
             tally.capped += result.capped
@@ -248,18 +251,6 @@ def _make_folder(path: Path) -> None:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise StoreError(f"{path}: cannot create the store folder: {exc.strerror}") from exc
-
-
-def _refuse_foreign(path: Path) -> None:
-    """A folder that is not a store may hold only the lock and the shards' folder."""
-    from sweep.lock import LOCK_NAME
-
-    if store.exists(path):
-        return
-    foreign = [p.name for p in path.iterdir()
-               if p.name not in (LOCK_NAME, records.SHARDS_DIR) and not p.name.startswith(f".{LOCK_NAME}.")]
-    if foreign:
-        raise StoreError(f"{path}: exists and is not a results store; choose another --store")
 
 
 def _tidy(path: Path, break_lock: bool) -> None:

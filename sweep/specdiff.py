@@ -1,9 +1,9 @@
-"""What changed between the spec a store was made with and the spec given now.
+"""Which keys were edited between the spec a store was made with and the spec given now.
 
-Resuming needs the same sweep. Two specs are the same sweep when their parsed contents
-are equal apart from ``run.store`` and the ``[cluster]`` table (where the work runs):
-comments, spacing, key order, the store's location and the batch settings are safe to change
-by construction; every other change alters which numbers land where.
+This lists edits key by key (ignoring comments, spacing, key order, ``run.store`` and the
+``[cluster]`` table), for the message that refuses a resume. Whether a resume is allowed is
+decided by ``sweep.identity`` (what decides the bytes), not here: key order, which this
+ignores, can move species columns, reactions and points.
 """
 
 from __future__ import annotations
@@ -38,7 +38,7 @@ def content(spec_text: str, model_text: str, design_file_sha256: str = "") -> di
 
 
 def digest(spec_text: str, model_text: str, design_file_sha256: str = "") -> str:
-    """SHA-256 of the canonical content: equal digests mean a resume is safe."""
+    """SHA-256 of the canonical content (kept in the store's attributes as ``content_sha256``)."""
     canonical = json.dumps(content(spec_text, model_text, design_file_sha256), sort_keys=True, default=str)
     return hashlib.sha256(canonical.encode()).hexdigest()
 

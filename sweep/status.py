@@ -9,7 +9,7 @@ from pathlib import Path
 import numpy as np
 import zarr
 
-from sweep import claims, lock, records, store
+from sweep import claims, integrity, lock, records, store
 
 
 @dataclass(frozen=True)
@@ -42,6 +42,7 @@ class StoreStatus:
     writer_alive: bool | None
     shards: tuple[claims.Claim, ...] = ()  # claims of `sweep run --shard` processes, live or stale
     adaptive: dict | None = None  # a [run.adaptive] sweep's rounds so far (sweep.adaptive.Outcome.summary)
+    damaged: tuple[str, ...] = ()  # arrays that could not be read (`sweep status --verify` says more)
 
     @property
     def tasks_not_needed(self) -> int:
@@ -64,12 +65,20 @@ def status(path: str | Path) -> StoreStatus:
     """
     path = Path(path)
     attrs = store.attributes(path)
-    g = zarr.open_group(path, mode="r")
-    done = store.read_done(path)  # `done` merged with the records of shards not folded yet
-    codes = g["status"][:]
-    names = tuple(str(v) for v in g["param"][:])
-    params = g["params"][:]
-    failed = tuple(FailedPoint(f["point"], f["block"], dict(zip(names, map(float, params[f["point"]]))), f["error"])
+    g = zarr.open_group(path, mode="r", use_consolidated=False)
+    damaged: list[str] = []
+    status_array = g["status"]
+    blocks = -(-status_array.shape[1] // status_array.chunks[1])
+    try:
+        done = store.read_done(path)  # `done` merged with the records of shards not folded yet
+    except store.DamagedDone as exc:
+        damaged.append(str(exc))
+        done = np.zeros((status_array.shape[0], blocks), dtype=bool)
+    codes = _read(g, "status", damaged, np.full(status_array.shape, -1, dtype=np.int8))
+    names = tuple(str(v) for v in _read(g, "param", damaged, np.asarray([], dtype=object)))
+    params = _read(g, "params", damaged, np.full((done.shape[0], len(names)), np.nan))
+    species = tuple(str(v) for v in _read(g, "species", damaged, np.asarray([], dtype=object)))
+    failed = tuple(FailedPoint(f["point"], f["block"], _params_of(names, params, f["point"]), f["error"])
                    for f in _failures(attrs, path) if not done[f["point"], f["block"]])
     writer = lock.read(path)
     return StoreStatus(
@@ -77,10 +86,26 @@ def status(path: str | Path) -> StoreStatus:
         tasks_done=int(done.sum()), failed=failed, capped=int(np.count_nonzero(codes == 1)),
         numerical=int(np.count_nonzero(codes == 2)), method=attrs["method"], root_seed=attrs["root_seed"],
         spec_sha256=attrs["spec_sha256"], spec_path=attrs.get("spec_path", ""), created=attrs.get("created", ""),
-        last_run=attrs.get("last_run"), param_names=names, species=tuple(str(v) for v in g["species"][:]),
+        last_run=attrs.get("last_run"), param_names=names, species=species,
         writer=writer, writer_alive=None if writer is None else (not lock.is_stale(writer)
                                                                  if lock.is_stale(writer) is not None else None),
-        shards=tuple(claims.list_claims(path)), adaptive=attrs.get("adaptive"))
+        shards=tuple(claims.list_claims(path)), adaptive=attrs.get("adaptive"), damaged=tuple(damaged))
+
+
+def _read(g: zarr.Group, name: str, damaged: list[str], fallback: np.ndarray) -> np.ndarray:
+    """An array's values, or ``fallback`` with a note when it is missing or fails its checksum."""
+    try:
+        return g[name][:]
+    except Exception as exc:
+        damaged.append(f"{name}: unreadable ({store._reason(exc)})")
+        return fallback
+
+
+def _params_of(names: tuple[str, ...], params: np.ndarray, point: int) -> dict[str, float]:
+    try:
+        return dict(zip(names, map(float, params[point])))
+    except (IndexError, ValueError):
+        return {}
 
 
 def _failures(attrs: dict, path: Path) -> list[dict]:
@@ -90,31 +115,17 @@ def _failures(attrs: dict, path: Path) -> list[dict]:
     return [by_task[k] for k in sorted(by_task)]
 
 
-def verify(path: str | Path, repair: bool = True) -> list[tuple[int, int, str]]:
-    """Re-read every chunk of every task marked done; unmark the bad ones so a rerun repairs them.
+def verify(path: str | Path, repair: bool = True) -> integrity.Verification:
+    """Re-read every chunk of every array; with ``repair``, unmark bad tasks so a rerun redoes them,
+    rewrite damaged coordinates from the spec and rebuild a damaged completion record.
 
     Returns
     -------
-    list of (point, block, problem)
+    sweep.integrity.Verification
 
     Raises
     ------
     StoreError
         If ``path`` holds no results store, or (with ``repair``) another run holds its lock.
     """
-    path = Path(path)
-    attrs = store.attributes(path)
-    done = store.read_done(path)
-    problems = store.verify(path, done, int(attrs["replicates_per_task"]))
-    if problems and repair:
-        me = lock.acquire(path)
-        try:
-            claims.settle(path)  # refuses while shards run; afterwards `done` alone is the record
-            done = store.read_done(path)
-            for point, block, _ in problems:
-                done[point, block] = False
-            store.write_done(path, done)
-            store.consolidate(path)
-        finally:
-            lock.release(path, me)
-    return problems
+    return integrity.verify(path, repair)

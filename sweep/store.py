@@ -18,13 +18,22 @@ done       point, block                    completion record, true once a task's
 One chunk of ``counts``/``status``/``events`` is one task's (point, replicate block), so
 no two writers ever share a chunk. Only the client writes ``done``, after the worker's
 write has returned; zarr >= 3.1.3 writes each chunk to a temporary file and renames it,
-so a killed writer leaves the old chunk or the new one, never a torn one.
+so a killed writer leaves the old chunk or the new one, never a torn one. Every chunk of
+every array ends in a CRC-32C checksum (zarr's ``crc32c`` codec), so a flipped bit fails
+to decode instead of reading as other numbers.
+
+Creation is all or nothing: a marker file ``.sweep-incomplete`` is written (and fsynced)
+before anything else, the layout is built in ``.sweep-building/`` inside the folder,
+fsynced, and moved into place with the root ``zarr.json`` last; the marker goes only then.
+A folder holding the marker is a store whose creation was interrupted: readers refuse it
+and the next ``sweep run`` rebuilds it.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
 import importlib.metadata
+import json
 import os
 import shutil
 import warnings
@@ -33,14 +42,17 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import zarr
-from zarr.codecs import BloscCodec
+from zarr.codecs import BloscCodec, Crc32cCodec
 
 from sweep import design as designs
+from sweep import durable, identity
 from sweep.errors import StoreError
 from sweep.lock import LOCK_NAME
 from sweep.records import SHARDS_DIR
 from sweep.records import mark as _mark_recorded
+from sweep.records import merge_sums as _merge_recorded_sums
 from sweep.records import read_indices as _recorded_by_shards
+from sweep.records import read_sums as _recorded_sums
 
 if TYPE_CHECKING:
     import xarray as xr
@@ -49,7 +61,20 @@ if TYPE_CHECKING:
     from sweep.spec import Spec
 
 FORMAT_VERSION = 1
-_COMPRESSORS = (BloscCodec(cname="zstd", clevel=3, shuffle="shuffle"),)
+# compression, then a checksum of the compressed bytes (checked on every read)
+_COMPRESSORS = (BloscCodec(cname="zstd", clevel=3, shuffle="shuffle"), Crc32cCodec())
+INCOMPLETE = ".sweep-incomplete"  # present from the first byte of a store's creation to the last
+BUILDING = ".sweep-building"  # where the layout is built before it is moved into place
+COORDINATES = ("time", "species", "param", "params")
+DATA_ARRAYS = ("counts", "status", "events")
+CHECKSUMS = "checksums"
+# write every chunk, even one equal to the fill value (zarr's default deletes those): a runtime
+# setting, not kept in an array's metadata, so every handle that writes needs it
+_WRITE_EMPTY = {"write_empty_chunks": True}
+
+
+class DamagedDone(StoreError):
+    """The completion record cannot be read; it can be rebuilt from the chunks (``sweep.integrity``)."""
 
 
 def versions() -> dict[str, str]:
@@ -64,17 +89,44 @@ def versions() -> dict[str, str]:
 
 
 def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
-    """Create the whole layout (shapes, chunks, attributes) before any task runs.
+    """Create the whole layout (shapes, chunks, attributes) before any task runs, all or nothing.
 
     Deletes whatever else is at ``path`` (but not the lock); callers decide whether that
-    is allowed.
+    is allowed. Interrupted at any moment (SIGKILL, Ctrl-C, a full disk), it leaves either
+    what was there before or a folder marked incomplete, which ``exists`` refuses and the
+    next call rebuilds.
     """
+    path.mkdir(parents=True, exist_ok=True)
+    _mark_incomplete(path)
     _clear(path)
+    build = path / BUILDING
+    _build(build, spec, points, n_blocks)
+    durable.fsync_tree(build)
+    for child in sorted(build.iterdir()):
+        if child.name != "zarr.json":
+            os.rename(child, path / child.name)
+    durable.fsync(path)
+    os.rename(build / "zarr.json", path / "zarr.json")  # the root last: xarray sees all or nothing
+    build.rmdir()
+    durable.fsync(path)
+    (path / INCOMPLETE).unlink()
+    durable.fsync(path)
+
+
+def _mark_incomplete(path: Path) -> None:
+    with open(path / INCOMPLETE, "w", encoding="utf-8") as f:
+        f.write("a sweep store is being created here; if no `sweep run` is running, the next one rebuilds it\n")
+        f.flush()
+        os.fsync(f.fileno())
+    durable.fsync(path)
+
+
+def _build(build: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     # an adaptive sweep's store holds its max_replicates; replicates never run stay -1 (not run)
     n_p, n_r, n_t, n_s = points.shape[0], spec.store_replicates, len(spec.times), len(spec.model.species)
     rb = spec.replicates_per_task
-    g = zarr.open_group(path, mode="a", zarr_format=3)
-    g.attrs.update(_attributes(spec))
+    g = zarr.open_group(build, mode="w", zarr_format=3)
+    g.attrs.update(_attributes(spec, points))
     # every written chunk exists on disk, even one equal to the fill value, so that
     # `sweep status --verify` can tell a lost chunk from a block of failed replicates
     data = {"write_empty_chunks": True}
@@ -82,18 +134,39 @@ def create(path: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
            ("point", "replicate", "time", "species"), data)
     _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"), data)
     _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"), data)
-    done = _array(g, "done", (n_p, n_blocks), (n_p, n_blocks), "bool", False, ("point", "block"))
-    done[:] = False
-    params = _array(g, "params", (n_p, points.shape[1]), (n_p, max(points.shape[1], 1)), "float64",
-                    np.nan, ("point", "param"))
-    if points.size:
-        params[:] = points
-    _array(g, "time", (n_t,), (n_t,), "float64", np.nan, ("time",))[:] = np.asarray(spec.times)
-    _array(g, "species", (n_s,), (n_s,), str, "", ("species",))[:] = np.asarray(spec.model.species, dtype=object)
-    names = _array(g, "param", (len(spec.param_names),), (max(len(spec.param_names), 1),), str, "", ("param",))
-    if spec.param_names:
-        names[:] = np.asarray(spec.param_names, dtype=object)
-    consolidate(path)
+    _array(g, "done", (n_p, n_blocks), (n_p, n_blocks), "bool", False, ("point", "block"), data)[:] = False
+    _checksums_array(g, n_p, n_blocks)
+    write_coordinates(g, spec, points, COORDINATES, create=True)
+    consolidate(build)
+
+
+def _checksums_array(g: zarr.Group, n_p: int, n_blocks: int) -> zarr.Array:
+    """The CRC-32C of each done task's three data chunks, as recorded when the task finished (0: none)."""
+    array = _array(g, CHECKSUMS, (n_p, n_blocks, len(DATA_ARRAYS)), (max(n_p, 1), max(n_blocks, 1), len(DATA_ARRAYS)),
+                   "uint32", 0, ("point", "block", "array"), {"write_empty_chunks": True})
+    array.attrs["arrays"] = list(DATA_ARRAYS)
+    array[:] = 0
+    return array
+
+
+def write_coordinates(g: zarr.Group, spec: Spec, points: np.ndarray, names, create: bool = False) -> None:
+    """(Re)write the coordinate arrays ``names`` from the spec: they follow from it alone."""
+    n_p, n_t, n_s, n_q = points.shape[0], len(spec.times), len(spec.model.species), len(spec.param_names)
+    layout = {
+        "params": ((n_p, points.shape[1]), (n_p, max(points.shape[1], 1)), "float64", np.nan, ("point", "param"),
+                   points),
+        "time": ((n_t,), (n_t,), "float64", np.nan, ("time",), np.asarray(spec.times)),
+        "species": ((n_s,), (n_s,), str, "", ("species",), np.asarray(spec.model.species, dtype=object)),
+        "param": ((n_q,), (max(n_q, 1),), str, "", ("param",), np.asarray(spec.param_names, dtype=object)),
+    }
+    for name in names:
+        shape, chunks, dtype, fill, dims, values = layout[name]
+        if create:
+            array = _array(g, name, shape, chunks, dtype, fill, dims, {"write_empty_chunks": True})
+        else:
+            array = g[name].with_config(_WRITE_EMPTY)
+        if np.asarray(values).size:
+            array[:] = values
 
 
 def counts_dtype(method: str) -> np.dtype:
@@ -107,15 +180,39 @@ def counts_dtype(method: str) -> np.dtype:
 
 
 def _clear(path: Path) -> None:
-    path.mkdir(parents=True, exist_ok=True)
+    """Delete everything but the lock and the creation marker; the root ``zarr.json`` first,
+    so that no reader takes the remains for a store while the rest goes."""
+    (path / "zarr.json").unlink(missing_ok=True)
     for child in path.iterdir():
         # the lock, and another process's lock being created or removed at this moment (sweep.lock)
-        if child.name == LOCK_NAME or child.name.startswith(f".{LOCK_NAME}."):
+        if child.name in (LOCK_NAME, INCOMPLETE) or child.name.startswith(f".{LOCK_NAME}."):
             continue
         if child.is_dir() and not child.is_symlink():
             shutil.rmtree(child)
         else:
             child.unlink(missing_ok=True)
+
+
+def is_ours(name: str) -> bool:
+    """Names a folder may hold before it is a store: the lock (and its temporary names), the
+    creation marker, the build folder and the shards' folder."""
+    return name in (LOCK_NAME, INCOMPLETE, BUILDING, SHARDS_DIR) or name.startswith(f".{LOCK_NAME}.")
+
+
+def check_claimable(path: Path) -> None:
+    """Refuse a folder that holds something other than a store, our own leftovers, or nothing.
+
+    Raises
+    ------
+    StoreError
+        If ``path`` is a file, or a folder with foreign entries.
+    """
+    if not path.exists() or exists(path) or incomplete(path):
+        if path.exists() and not path.is_dir():
+            raise StoreError(f"{path}: exists and is not a results store; choose another --store")
+        return
+    if not path.is_dir() or any(not is_ours(p.name) for p in path.iterdir()):
+        raise StoreError(f"{path}: exists and is not a results store; choose another --store")
 
 
 def consolidate(path: Path) -> None:
@@ -130,15 +227,17 @@ def consolidate(path: Path) -> None:
         warnings.filterwarnings("ignore", message=f"Object at {SHARDS_DIR} is not recognized")
         # a lock being created or removed by another process at this moment (sweep.lock._create)
         warnings.filterwarnings("ignore", message=rf"Object at \.{LOCK_NAME}\..* is not recognized")
+        warnings.filterwarnings("ignore", message=rf"Object at \{INCOMPLETE} is not recognized")
         zarr.consolidate_metadata(path)
 
 
-def _array(g, name, shape, chunks, dtype, fill, dims, config=None):
+def _array(g, name, shape, chunks, dtype, fill, dims, config=None, overwrite=False):
     return g.create_array(name, shape=shape, chunks=chunks, dtype=dtype, fill_value=fill,
-                          dimension_names=dims, compressors=_COMPRESSORS, config=config)
+                          dimension_names=dims, compressors=_COMPRESSORS, config=config, overwrite=overwrite)
 
 
-def _attributes(spec: Spec) -> dict:
+def _attributes(spec: Spec, points: np.ndarray) -> dict:
+    fingerprint = identity.of(spec, points)
     return {
         "format_version": FORMAT_VERSION,
         "spec": spec.text,
@@ -152,6 +251,9 @@ def _attributes(spec: Spec) -> dict:
         "root_seed": spec.seed,
         "replicates_per_task": spec.replicates_per_task,
         "max_events": spec.max_events,
+        # what decides the bytes (sweep.identity): a resume must match it
+        "identity": fingerprint,
+        "identity_sha256": identity.digest(fingerprint),
         "versions": versions(),
         "created": _now(),
     }
@@ -162,47 +264,125 @@ def _now() -> str:
 
 
 def exists(path: Path) -> bool:
-    return (path / "zarr.json").is_file()
+    """True for a complete store (its creation finished)."""
+    return (path / "zarr.json").is_file() and not incomplete(path)
+
+
+def incomplete(path: Path) -> bool:
+    """True for a folder whose store creation was interrupted (the next run rebuilds it)."""
+    return (path / INCOMPLETE).exists()
+
+
+def _missing(path: Path) -> StoreError:
+    if incomplete(path):
+        return StoreError(f"{path}: the creation of this store was interrupted, so it holds no results; "
+                          f"`sweep run SPEC --store {path}` rebuilds it")
+    return StoreError(f"{path}: no results store here (run `sweep run SPEC --store {path}` first)")
 
 
 def attributes(path: Path) -> dict:
-    """The store's group attributes (spec text, hash, method, seed, versions, ...)."""
+    """The store's group attributes (spec text, hash, method, seed, versions, ...).
+
+    Raises
+    ------
+    StoreError
+        No store at ``path``, an interrupted creation, or a root ``zarr.json`` that is damaged
+        (it holds the spec; the message names the file).
+    """
+    if not exists(path):
+        raise _missing(path)
+    root = path / "zarr.json"
     try:
-        return dict(zarr.open_group(path, mode="r").attrs)
-    except (FileNotFoundError, zarr.errors.GroupNotFoundError) as exc:
-        raise StoreError(f"{path}: no results store here (run `sweep run SPEC --store {path}` first)") from exc
+        attrs = dict(json.loads(root.read_bytes())["attributes"])
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        raise StoreError(f"{root}: damaged ({_reason(exc)}); this file holds the store's spec and attributes, so "
+                         "the store can be neither checked nor resumed: restore the file from a copy, or start "
+                         "over with --fresh (which deletes the store)") from exc
+    if not isinstance(attrs.get("spec"), str) or "method" not in attrs:
+        raise StoreError(f"{root}: not written by `sweep run` (no spec in its attributes); choose another --store")
+    return attrs
 
 
-DATA_ARRAYS = ("counts", "status", "events")
+def _reason(exc: BaseException) -> str:
+    text = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+    return text if len(text) <= 120 else text[:117] + "..."
 
 
-def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult) -> None:
+def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult) -> tuple[int, ...]:
     """Write one task's replicates into the chunks it alone owns, durably. Runs on a worker.
 
     zarr writes each chunk to a temporary file and renames it into place; the fsync of
     the files and of their directories afterwards makes the data survive a crash of the
-    machine, not only of the process, before the client marks the task done.
+    machine, not only of the process, before the client marks the task done. Every chunk
+    is written, even one equal to the fill value (a task whose replicates all failed):
+    ``write_empty_chunks`` is a runtime setting, not stored in the array's metadata.
+
+    Returns the CRC-32C that ends each of the three chunk files (0 for an array written
+    before checksums were kept), for the completion record to keep beside ``done``.
+
+    Raises
+    ------
+    StoreError
+        If a chunk's folder leads out of the store through a symlink.
     """
-    g = zarr.open_group(path, mode="r+")
+    root = Path(path)
+    g = zarr.open_group(root, mode="r+")
+    sums = []
     for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)):
-        array = g[name]
+        array = g[name].with_config(_WRITE_EMPTY)
+        target = chunk_file(root, name, array, point, start)
+        if not durable.inside(target.parent, root):
+            raise StoreError(f"{root}: {target.parent.relative_to(root)} leads out of the store through a "
+                             "symlink; refusing to write there")
         array[point, start:stop] = values
-        _fsync_chunk(Path(path), name, array, point, start)
+        _fsync_chunk(root, target)
+        sums.append(trailing_checksum(target) if has_checksums(array) else 0)
+    return tuple(sums)
 
 
-def _chunk_file(path: Path, name: str, array: zarr.Array, point: int, start: int) -> Path:
+def has_checksums(array: zarr.Array) -> bool:
+    """True when every chunk of ``array`` ends in a CRC-32C (stores created since checksums were kept)."""
+    return any(isinstance(c, Crc32cCodec) for c in array.metadata.codecs)
+
+
+def trailing_checksum(file: Path) -> int:
+    """The CRC-32C stored in a chunk file's last four bytes (little-endian, as zarr's codec writes it)."""
+    with open(file, "rb") as f:
+        f.seek(-4, os.SEEK_END)
+        return int.from_bytes(f.read(4), "little")
+
+
+def read_checksums(path: Path) -> np.ndarray | None:
+    """The recorded checksums (points, blocks, 3) merged with the shards' records; None if the
+    store keeps none (created before they were kept) or they are unreadable."""
+    try:
+        sums = zarr.open_array(path, path=CHECKSUMS, mode="r")[:]
+    except Exception:
+        return None
+    return _merge_recorded_sums(sums, _recorded_sums(path))
+
+
+def write_checksums(path: Path, sums: np.ndarray) -> None:
+    """Replace the recorded checksums (the lock's holder only), creating the array if missing."""
+    try:
+        array = zarr.open_array(path, path=CHECKSUMS, mode="r+")
+    except Exception:
+        g = zarr.open_group(path, mode="r+", use_consolidated=False)
+        if CHECKSUMS in g:
+            del g[CHECKSUMS]
+        array = _checksums_array(g, sums.shape[0], sums.shape[1])
+    array.with_config(_WRITE_EMPTY)[:] = sums
+
+
+def chunk_file(path: Path, name: str, array: zarr.Array, point: int, start: int) -> Path:
+    """The file of the chunk holding replicate ``start`` of ``point`` in a data array."""
     coords = (point, start // array.chunks[1]) + (0,) * (array.ndim - 2)
     return path / name / array.metadata.encode_chunk_key(coords)
 
 
-def _fsync_chunk(path: Path, name: str, array: zarr.Array, point: int, start: int) -> None:
-    target = _chunk_file(path, name, array, point, start)
+def _fsync_chunk(path: Path, target: Path) -> None:
     for node in (target, *target.parents):
-        fd = os.open(node, os.O_RDONLY)
-        try:
-            os.fsync(fd)
-        finally:
-            os.close(fd)
+        durable.fsync(node)
         if node == path:
             break
 
@@ -215,7 +395,7 @@ def verify(path: Path, done: np.ndarray, replicates_per_task: int) -> list[tuple
     for point, block in zip(*np.nonzero(done)):
         start = int(block) * replicates_per_task
         for name, array in arrays.items():
-            if not _chunk_file(path, name, array, int(point), start).is_file():
+            if not chunk_file(path, name, array, int(point), start).is_file():
                 problems.append((int(point), int(block), f"{name} chunk missing"))
                 break
             try:
@@ -244,14 +424,43 @@ def read_done(path: Path) -> np.ndarray:
 
     The shards' records are read first: folding them writes ``done`` before it deletes
     them, so a record that vanished meanwhile is already in the ``done`` read after it.
+
+    Raises
+    ------
+    DamagedDone
+        If ``done`` is missing, fails its checksum or has the wrong shape.
     """
     recorded = _recorded_by_shards(path)
-    return _mark_recorded(zarr.open_array(path, path="done", mode="r")[:], recorded)
+    return _mark_recorded(read_done_array(path), recorded)
+
+
+def read_done_array(path: Path) -> np.ndarray:
+    """``done`` alone (without the shards' records), checked against the data arrays' shape."""
+    try:
+        done = zarr.open_array(path, path="done", mode="r")[:]
+        status = zarr.open_array(path, path="status", mode="r")
+        blocks = -(-status.shape[1] // status.chunks[1])
+    except Exception as exc:  # a missing array, a damaged zarr.json or a chunk failing its checksum
+        raise DamagedDone(f"{path / 'done'}: the completion record is damaged ({_reason(exc)})") from exc
+    if done.dtype != np.bool_ or done.shape != (status.shape[0], blocks):
+        raise DamagedDone(f"{path / 'done'}: the completion record is damaged (shape {done.shape}, dtype "
+                          f"{done.dtype}; expected {(status.shape[0], blocks)}, bool)")
+    return done
 
 
 def write_done(path: Path, done: np.ndarray) -> None:
     """Replace ``done`` (only the lock's holder calls this: a single writer; shards keep records)."""
-    zarr.open_array(path, path="done", mode="r+")[:] = done
+    zarr.open_array(path, path="done", mode="r+").with_config(_WRITE_EMPTY)[:] = done
+
+
+def recreate_done(path: Path, done: np.ndarray) -> None:
+    """Write ``done`` as a new array (its old one is missing or damaged), durably."""
+    g = zarr.open_group(path, mode="r+", use_consolidated=False)
+    n_p, n_b = done.shape
+    _array(g, "done", (n_p, n_b), (max(n_p, 1), max(n_b, 1)), "bool", False, ("point", "block"),
+           {"write_empty_chunks": True}, overwrite=True)[:] = done
+    durable.fsync_tree(path / "done")
+    durable.fsync(path)
 
 
 def record_failures(path: Path, failed: list[dict], done: np.ndarray) -> None:
@@ -284,5 +493,5 @@ def open_dataset(path: str | Path) -> xr.Dataset:
 
     path = Path(path)
     if not exists(path):
-        raise StoreError(f"{path}: no results store here (run `sweep run SPEC --store {path}` first)")
+        raise _missing(path)
     return xr.open_zarr(path)

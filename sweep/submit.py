@@ -298,11 +298,11 @@ def pending_record(spec) -> np.ndarray:
         The store holds another spec's sweep (the shards would refuse it anyway).
     """
     from sweep import store as store_mod
-    from sweep.runner import _check_same_sweep
+    from sweep.runner import check_same_sweep
     from sweep.tasks import n_blocks
 
     if store_mod.exists(spec.store):
-        _check_same_sweep(spec)
+        check_same_sweep(spec)
         return store_mod.read_done(spec.store)
     return np.zeros((spec.points().shape[0], n_blocks(spec.store_replicates, spec.replicates_per_task)), dtype=bool)
 

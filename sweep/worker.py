@@ -43,6 +43,7 @@ class TaskResult:
     capped: int
     failed: int
     seconds: float
+    checksums: tuple[int, ...] = ()  # CRC-32C of the task's counts, status and events chunks
 
 
 def run_task(task: TaskInput) -> TaskResult:
@@ -52,11 +53,11 @@ def run_task(task: TaskInput) -> TaskResult:
     seeds = replicate_seeds(task.root_seed, task.point, task.start, task.stop)
     result = kernel.simulate(task.network, task.rates, task.x0, task.times, seeds, task.max_events,
                              **dict(task.options))
-    store.write_block(task.store, task.point, task.start, task.stop, result)
+    sums = store.write_block(task.store, task.point, task.start, task.stop, result)
     return TaskResult(task.point, task.block, int(result.events.sum()),
                       int(np.count_nonzero(result.status == STATUS_EVENT_CAP)),
                       int(np.count_nonzero(result.status == STATUS_NUMERICAL)),
-                      time.perf_counter() - began)
+                      time.perf_counter() - began, sums)
 
 
 def warm_up(task: TaskInput) -> None:

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import functools
+import re
 from typing import Callable
 
 import typer
 from rich.console import Console
+from rich.markup import escape
 
 from sweep.errors import SpecError, StoreError, SweepError
 
@@ -15,6 +17,21 @@ errors = Console(stderr=True)
 
 EXIT_FAILED_TASKS = 1
 EXIT_BAD_INPUT = 2
+
+# C0 and C1 control characters but tab and newline: an escape sequence stored in a store made by
+# someone else must not reach the terminal raw
+_CONTROL = re.compile(r"[\x00-\x08\x0b-\x1f\x7f-\x9f]")
+
+
+def shown(text: object) -> str:
+    r"""User or stored text made safe to print with rich: control characters as ``\xNN``, markup escaped.
+
+    Example
+    -------
+    >>> print(shown("declare it under [species]\x1b"))
+    declare it under \[species]\x1b
+    """
+    return escape(_CONTROL.sub(lambda m: f"\\x{ord(m.group()):02x}", str(text)))
 
 
 def exits_on_errors(command: Callable) -> Callable:
@@ -25,10 +42,10 @@ def exits_on_errors(command: Callable) -> Callable:
         try:
             return command(*args, **kwargs)
         except (SpecError, StoreError) as exc:
-            errors.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
+            errors.print(f"[bold red]error:[/] {shown(exc)}", highlight=False, soft_wrap=True)
             raise typer.Exit(EXIT_BAD_INPUT) from None
         except SweepError as exc:
-            errors.print(f"[bold red]error:[/] {exc}", highlight=False, soft_wrap=True)
+            errors.print(f"[bold red]error:[/] {shown(exc)}", highlight=False, soft_wrap=True)
             raise typer.Exit(EXIT_FAILED_TASKS) from None
 
     return wrapper

@@ -9,7 +9,7 @@ import typer
 from rich.table import Table
 
 import sweep
-from sweep.cli.common import EXIT_FAILED_TASKS, console, exits_on_errors
+from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, shown
 from sweep.status import verify as verify_store
 
 
@@ -18,7 +18,7 @@ def _adaptive_rows(table: Table, st: sweep.StoreStatus) -> None:
     from sweep.adaptive import describe_states
 
     summary = st.adaptive
-    table.add_row("adaptive target", summary.get("description", ""))
+    table.add_row("adaptive target", shown(summary.get("description", "")))
     table.add_row("adaptive points", "; ".join(describe_states(summary.get("points", {}), st.replicates)))
     reps = summary.get("replicates") or {}
     if reps:
@@ -33,7 +33,7 @@ def status(
 ) -> None:
     """Show done/failed/pending tasks, replicates stopped early, and the spec the store holds."""
     st = sweep.status(store)
-    table = Table(title=f"{st.path}", show_header=False, title_justify="left")
+    table = Table(title=shown(st.path), show_header=False, title_justify="left")
     table.add_column(style="bold")
     table.add_column()
     needed = st.tasks_total - st.tasks_not_needed
@@ -48,28 +48,51 @@ def status(
     table.add_row("stopped at event cap", f"{st.capped:,} replicates")
     table.add_row("numerical failures", f"{st.numerical:,} replicates")
     table.add_row("method, root seed", f"{st.method}, {st.root_seed}")
-    table.add_row("species", ", ".join(st.species))
-    table.add_row("varied parameters", ", ".join(st.param_names) or "(none)")
-    table.add_row("spec", f"{st.spec_path} (SHA-256 {st.spec_sha256[:12]})")
-    table.add_row("created, last run", f"{st.created}, {st.last_run or 'never'}")
+    table.add_row("species", shown(", ".join(st.species)))
+    table.add_row("varied parameters", shown(", ".join(st.param_names) or "(none)"))
+    table.add_row("spec", f"{shown(st.spec_path)} (SHA-256 {shown(st.spec_sha256[:12])})")
+    table.add_row("created, last run", shown(f"{st.created}, {st.last_run or 'never'}"))
     if st.writer is not None:
         state = {True: "running now", False: "stale (that process is gone)", None: "on another host"}[st.writer_alive]
-        table.add_row("lock", f"{st.writer.describe()}: {state}")
+        table.add_row("lock", f"{shown(st.writer.describe())}: {state}")
     for claim in st.shards:
-        table.add_row("shard", claim.describe())
+        table.add_row("shard", shown(claim.describe()))
+    for note in st.damaged:
+        table.add_row("[red]damaged[/]", f"{shown(note)}; `sweep status --verify` repairs what it can")
     console.print(table)
     if st.failed:
         failed = Table(title="Failed tasks (a rerun tries them again)", title_justify="left")
         for col in ("point", "block", *st.param_names, "error"):
-            failed.add_column(col)
+            failed.add_column(shown(col))
         for f in st.failed:
-            failed.add_row(str(f.point), str(f.block), *(f"{f.params[n]:g}" for n in st.param_names), f.error)
+            failed.add_row(str(f.point), str(f.block), *(f"{f.params.get(n, float('nan')):g}" for n in st.param_names),
+                           shown(f.error))
         console.print(failed)
     if verify:
-        problems = verify_store(store)
-        if problems:
-            for point, block, problem in problems:
-                console.print(f"[red]bad[/] point {point} block {block}: {problem}; marked not done")
-            console.print(f"{len(problems)} task(s) will be recomputed by the next `sweep run`")
-            raise typer.Exit(EXIT_FAILED_TASKS)
-        console.print(f"verified: every chunk of the {st.tasks_done:,} done tasks is present and readable")
+        _verify(store)
+
+
+def _verify(store: Path) -> None:
+    """Print what ``--verify`` found and repaired; exit 1 when anything was wrong."""
+    found = verify_store(store)
+    for name, problem in found.coordinates.items():
+        errors.print(f"[red]damaged[/] coordinate {shown(name)}: {shown(problem)}")
+    if found.done_damaged:
+        errors.print(f"[red]damaged[/] {shown(found.done_damaged)}")
+    for point, block, problem in found.tasks:
+        errors.print(f"[red]bad[/] point {point} block {block}: {shown(problem)}; marked not done")
+    if found.repaired is not None:
+        for line in found.repaired.describe():
+            console.print(f"repaired: {shown(line)}")
+    if found.tasks:
+        console.print(f"{len(found.tasks)} task(s) will be recomputed by the next `sweep run`")
+    if not found.checksums:
+        console.print("note: this store was written before chunks carried checksums: verify checked that each "
+                      "chunk is present and decodes, but a flipped bit inside a chunk can go unnoticed")
+    elif not found.positions:
+        console.print("note: this store keeps no checksums recorded per task: a chunk file moved to another "
+                      "task's place cannot be told from the right one")
+    if not found.sound:
+        raise typer.Exit(EXIT_FAILED_TASKS)
+    console.print(f"verified: every chunk of the {found.checked:,} done tasks and of the coordinates is present "
+                  "and matches its checksum")

@@ -14,7 +14,7 @@ from rich.table import Table
 import sweep
 from sweep import store as store_mod
 from sweep.cli import clustering, sharding
-from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, si
+from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, shown, si
 
 EXIT_INTERRUPTED = 130  # the shell's convention for a run stopped by SIGINT
 
@@ -61,6 +61,8 @@ def run(
     state = {}
 
     def on_start(started: sweep.Started) -> None:
+        for line in started.repaired:
+            errors.print(f"[yellow]repaired:[/] {shown(line)}")
         if batch is not None:
             console.print(f"Dask scheduler: {started.address}", highlight=False)
         if started.resumed:
@@ -97,6 +99,8 @@ def run(
 
 def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     if summary.tasks_run == 0 and summary.complete:
+        for line in summary.repaired:
+            errors.print(f"[yellow]repaired:[/] {shown(line)}")
         console.print(f"nothing to do: all {summary.tasks_total:,} tasks of {summary.store} are done")
         return
     title = "Sweep finished" if summary.complete else (
@@ -120,7 +124,7 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
         _adaptive_rows(table, summary.adaptive)
     console.print(table)
     for failure in summary.failed[:20]:
-        errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {failure.error}",
+        errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {shown(failure.error)}",
                      highlight=False)
     if len(summary.failed) > 20:
         errors.print(f"... and {len(summary.failed) - 20} more; `sweep status {summary.store}` lists them all")

@@ -254,7 +254,7 @@ def test_results_live_in_their_own_group(lhs_store, tmp_path):
         group = xr.open_zarr(lhs_store, group="analysis")
         table = xr.open_zarr(lhs_store, group="analysis/sensitivity").to_dataframe()
     assert after.identical(before)
-    assert set(after.data_vars) == {"counts", "status", "events", "done", "params"}
+    assert set(after.data_vars) == {"counts", "status", "events", "done", "checksums", "params"}
     for name, dims in (("mean", ("point", "time", "species")), ("quantiles", ("point", "quantile", "time", "species")),
                        ("fraction", ("point", "time", "threshold")), ("passage_pmf", ("point", "threshold", "time")),
                        ("histogram", ("point", "hist_time", "hist_species", "bin"))):

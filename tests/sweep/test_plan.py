@@ -105,7 +105,7 @@ def test_plan_command_prints_the_plan(spec_file):
     path = spec_file(GRID.replace("[design.vary]\nk = [2.0, 5.0, 10.0]\ng = [0.5, 1.0]\n",
                                   '[design]\nkind = "lhs"\npoints = 6\n[design.vary]\n'
                                   'k = { low = 1, high = 10, distribution = "log-uniform" }\n'))
-    result = runner.invoke(app, ["plan", str(path), "--workers", "3", "--seconds", "0.3"])
+    result = runner.invoke(app, ["plan", str(path), "--workers", "3", "--seconds", "0.3"], env={"COLUMNS": "200"})
     assert result.exit_code == 0, result.output
     out = " ".join(result.output.split())
     for fragment in ("Design: lhs", "log-uniform", "24 of up to 10 replicates", "compressed (ratio", "from a trial",
