@@ -117,8 +117,12 @@ def check_writable(path: Path) -> None:
     Raises
     ------
     StoreError
-        A lock whose holder is alive, or on another host where it cannot be checked.
+        A lock whose holder is alive, or on another host where it cannot be checked; or a
+        symlink inside the store (the analysis would be written where it leads).
     """
+    from sweep import integrity
+
+    integrity.refuse_symlinks(path)
     running = [c for c in claims.list_claims(path) if c.live is not False]
     if running:
         raise StoreError(f"{path}: shards (`sweep run --shard`) are writing this store ({running[0].describe()}); "

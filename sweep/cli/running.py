@@ -86,7 +86,8 @@ def run(
         bar.stop()
         # between an adaptive sweep's rounds the bar has started: what finished is recorded
         errors.print("interrupted; every finished task is recorded" if "task" in state
-                     else "interrupted before any task ran; nothing was lost")
+                     else "interrupted while the store was being created; the next run rebuilds it"
+                     if store_mod.incomplete(spec.store) else "interrupted before any task ran; nothing was lost")
         console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
         raise typer.Exit(EXIT_INTERRUPTED) from None
     finally:

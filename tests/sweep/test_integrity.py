@@ -578,3 +578,33 @@ def test_a_task_whose_replicates_all_fail_writes_every_chunk(tmp_path, scheduler
         assert len([p for p in (target / name / "c").rglob("*") if p.is_file()]) == 16, name
     result = cli.invoke(app, ["status", str(target), "--verify"])
     assert result.exit_code == 0 and "numerical failures" in result.output, result.output
+
+
+def _start(spec_path: Path, target: Path) -> subprocess.Popen:
+    """A real `sweep run` in its own session (so the test can signal its whole process group)."""
+    import sys
+
+    return subprocess.Popen([sys.executable, "-m", "sweep.cli", "run", str(spec_path), "--store", str(target),
+                             "--workers", "1"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            start_new_session=True, env={**os.environ, "COLUMNS": "250"})
+
+
+@pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGINT])
+@pytest.mark.parametrize("trigger", [store.INCOMPLETE, f"{store.BUILDING}/counts", f"{store.BUILDING}/zarr.json",
+                                     "zarr.json"])
+def test_a_real_run_signalled_as_each_file_of_creation_appears_resumes_identically(trigger, sig, reference,
+                                                                                     tmp_path, scheduler):
+    spec_path, expected = reference
+    target = tmp_path / "s.zarr"
+    watched = target / trigger
+    proc = _start(spec_path, target)
+    while not watched.exists():
+        assert proc.poll() is None, proc.communicate()
+    os.killpg(proc.pid, sig)
+    out, err = proc.communicate(timeout=120)
+    if sig == signal.SIGINT:
+        assert proc.returncode == 130 and "Traceback" not in err, out + err
+        assert "interrupted" in err, err
+    result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
+    assert result.exit_code == 0, result.output
+    _assert_same(_arrays(target), expected)
