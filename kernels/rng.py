@@ -8,7 +8,7 @@ numba, and the event loop of an exact method draws two numbers per event.
 
 from __future__ import annotations
 
-from typing import Sequence
+from typing import NamedTuple, Sequence
 
 import numba
 import numpy as np
@@ -16,12 +16,32 @@ import numpy as np
 _U53 = 1.0 / 9007199254740992.0  # 2**-53
 
 
-def seed_states(seeds: Sequence[np.random.SeedSequence]) -> np.ndarray:
+class Streams(NamedTuple):
+    """The streams of replicates ``start:stop`` of ``point`` under root seed ``root``.
+
+    Stands for ``[SeedSequence(root, spawn_key=(point, r)) for r in range(start, stop)]`` as a
+    kernel's ``seeds`` argument, with the states computed compiled (``kernels.seeding``).
+    """
+
+    root: int
+    point: int
+    start: int
+    stop: int
+
+    def __len__(self) -> int:  # type: ignore[override]  (as many seeds as replicates)
+        return self.stop - self.start
+
+
+def seed_states(seeds: Streams | Sequence[np.random.SeedSequence]) -> np.ndarray:
     """Return one xoshiro256+ state per seed, shape (n, 4) uint64.
 
     A state of all zeros is the one fixed point of the generator; ``SeedSequence``
     output is hashed, so it never occurs in practice, but it is guarded anyway.
     """
+    if isinstance(seeds, Streams):
+        from kernels.seeding import replicate_states
+
+        return replicate_states(*seeds)
     states = np.empty((len(seeds), 4), dtype=np.uint64)
     for i, seq in enumerate(seeds):
         states[i] = seq.generate_state(4, np.uint64)

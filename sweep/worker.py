@@ -12,8 +12,8 @@ import numpy as np
 
 import kernels
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
+from kernels.rng import Streams
 from sweep import store
-from sweep.tasks import replicate_seeds
 
 
 @dataclass(frozen=True)
@@ -50,7 +50,8 @@ def run_task(task: TaskInput) -> TaskResult:
     """Simulate replicates ``start:stop`` of one point and write them. Idempotent."""
     began = time.perf_counter()
     kernel = kernels.get(task.method)
-    seeds = replicate_seeds(task.root_seed, task.point, task.start, task.stop)
+    # SeedSequence(root, spawn_key=(point, r)) for each replicate, computed compiled (kernels.seeding)
+    seeds = Streams(task.root_seed, task.point, task.start, task.stop)
     result = kernel.simulate(task.network, task.rates, task.x0, task.times, seeds, task.max_events,
                              **dict(task.options))
     sums = store.write_block(task.store, task.point, task.start, task.stop, result)

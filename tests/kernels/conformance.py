@@ -106,6 +106,17 @@ class KernelConformance:
         other_point = self.run(kernel, immigration_death(), times, seeds(8, point=1))
         assert not any(np.array_equal(res.counts[i], other_point.counts[i]) for i in range(8))
 
+    def test_compiled_streams_give_the_seed_sequences_results(self, kernel):
+        """What a sweep's tasks pass (``Streams``, seeded compiled) equals the SeedSequence list."""
+        from kernels.rng import Streams
+
+        times = np.linspace(0.0, 20.0, 41)
+        a = self.run(kernel, mixed_network(), times, Streams(ROOT, 3, 5, 17))
+        b = self.run(kernel, mixed_network(), times, [np.random.SeedSequence(ROOT, spawn_key=(3, r))
+                                                      for r in range(5, 17)])
+        for got, want in zip(a, b):
+            np.testing.assert_array_equal(got, want)
+
     def test_replicate_independent_of_block(self, kernel):
         times = np.linspace(0.0, 20.0, 41)
         s0, s1, s2 = seeds(3)
