@@ -205,6 +205,7 @@ def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[T
     network = compile_network(spec.model)
     times = np.asarray(spec.times)
     path = str(spec.store.resolve())
+    ident = store.store_id(store.attributes(spec.store))
     cached_point, rates, x0 = -1, None, None
     for t in tasks:
         if t.point != cached_point:
@@ -212,7 +213,7 @@ def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[T
             rates, x0 = rate_constants(spec.model, values), initial_counts(spec.model, values)
             cached_point = t.point
         yield TaskInput(path, spec.method, network, rates, x0, times, spec.seed, t.point, t.block,
-                        t.start, t.stop, spec.max_events, spec.options)
+                        t.start, t.stop, spec.max_events, spec.options, ident)
 
 
 def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,

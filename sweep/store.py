@@ -36,6 +36,7 @@ import importlib.metadata
 import json
 import os
 import shutil
+import uuid
 import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -256,6 +257,7 @@ def _attributes(spec: Spec, points: np.ndarray) -> dict:
         "identity_sha256": identity.digest(fingerprint),
         "versions": versions(),
         "created": _now(),
+        "store_id": uuid.uuid4().hex,  # new at every creation: workers' cached handles follow it
     }
 
 
@@ -308,14 +310,15 @@ def _reason(exc: BaseException) -> str:
     return text if len(text) <= 120 else text[:117] + "..."
 
 
-def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult) -> tuple[int, ...]:
+def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult,
+                store_id: str = "") -> tuple[int, ...]:
     """Write one task's replicates into the chunks it alone owns, durably. Runs on a worker.
 
-    zarr writes each chunk to a temporary file and renames it into place; the fsync of
-    the files and of their directories afterwards makes the data survive a crash of the
-    machine, not only of the process, before the client marks the task done. Every chunk
-    is written, even one equal to the fill value (a task whose replicates all failed):
-    ``write_empty_chunks`` is a runtime setting, not stored in the array's metadata.
+    Each chunk goes to a temporary file that is fsynced and renamed into place, and its folder
+    is fsynced (``sweep.chunks``), so the data survives a crash of the machine, not only of the
+    process, before the client marks the task done. Every chunk is written, even one equal to
+    the fill value (a task whose replicates all failed). With ``store_id`` (the store's
+    ``attrs["store_id"]``) the worker keeps the store's array handles open between tasks.
 
     Returns the CRC-32C that ends each of the three chunk files (0 for an array written
     before checksums were kept), for the completion record to keep beside ``done``.
@@ -323,9 +326,24 @@ def write_block(path: str | Path, point: int, start: int, stop: int, result: Ker
     Raises
     ------
     StoreError
-        If a chunk's folder leads out of the store through a symlink.
+        If a chunk's folder leads out of the store through a symlink, or the block is not one chunk.
     """
+    from sweep.chunks import ChunkWriter
+
     root = Path(path)
+    writer = ChunkWriter.of(root, store_id) if store_id else None
+    if writer is None:
+        return _write_block_with_zarr(root, point, start, stop, result)
+    per_chunk = writer.arrays["status"].chunks[1]
+    if start % per_chunk or stop - start > per_chunk:
+        raise StoreError(f"{root}: replicates {start}:{stop} are not one chunk of {per_chunk}")
+    block = start // per_chunk
+    return tuple(writer.write(name, point, block, values)
+                 for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)))
+
+
+def _write_block_with_zarr(root: Path, point: int, start: int, stop: int, result: KernelResult) -> tuple[int, ...]:
+    """The same through zarr (a store whose codecs ``sweep.chunks`` does not write itself)."""
     g = zarr.open_group(root, mode="r+")
     sums = []
     for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)):
@@ -374,6 +392,11 @@ def write_checksums(path: Path, sums: np.ndarray) -> None:
     array.with_config(_WRITE_EMPTY)[:] = sums
 
 
+def store_id(attrs: dict) -> str:
+    """A value that changes whenever the store at a path is created anew (workers key their handles by it)."""
+    return str(attrs.get("store_id") or f"{attrs.get('spec_sha256', '')}-{attrs.get('created', '')}")
+
+
 def chunk_file(path: Path, name: str, array: zarr.Array, point: int, start: int) -> Path:
     """The file of the chunk holding replicate ``start`` of ``point`` in a data array."""
     coords = (point, start // array.chunks[1]) + (0,) * (array.ndim - 2)
@@ -385,25 +408,6 @@ def _fsync_chunk(path: Path, target: Path) -> None:
         durable.fsync(node)
         if node == path:
             break
-
-
-def verify(path: Path, done: np.ndarray, replicates_per_task: int) -> list[tuple[int, int, str]]:
-    """Re-read every chunk of every task marked done; return (point, block, problem) for bad ones."""
-    g = zarr.open_group(path, mode="r")
-    arrays = {name: g[name] for name in DATA_ARRAYS}
-    problems = []
-    for point, block in zip(*np.nonzero(done)):
-        start = int(block) * replicates_per_task
-        for name, array in arrays.items():
-            if not chunk_file(path, name, array, int(point), start).is_file():
-                problems.append((int(point), int(block), f"{name} chunk missing"))
-                break
-            try:
-                array[int(point), start:start + replicates_per_task]
-            except Exception as exc:  # any decode failure means the chunk is unusable
-                problems.append((int(point), int(block), f"{name} chunk unreadable: {exc}"))
-                break
-    return problems
 
 
 def remove_partials(path: Path) -> int:

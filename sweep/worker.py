@@ -33,6 +33,7 @@ class TaskInput:
     stop: int
     max_events: int
     options: tuple[tuple[str, object], ...] = ()  # method keyword options from [run.options]
+    store_id: str = ""  # the store's attrs["store_id"]: the worker keeps its handles open while it matches
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,7 @@ def run_task(task: TaskInput) -> TaskResult:
     seeds = Streams(task.root_seed, task.point, task.start, task.stop)
     result = kernel.simulate(task.network, task.rates, task.x0, task.times, seeds, task.max_events,
                              **dict(task.options))
-    sums = store.write_block(task.store, task.point, task.start, task.stop, result)
+    sums = store.write_block(task.store, task.point, task.start, task.stop, result, task.store_id)
     return TaskResult(task.point, task.block, int(result.events.sum()),
                       int(np.count_nonzero(result.status == STATUS_EVENT_CAP)),
                       int(np.count_nonzero(result.status == STATUS_NUMERICAL)),

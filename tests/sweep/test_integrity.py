@@ -254,9 +254,10 @@ def _create_in_child(spec_path: Path, target: Path, step: int, how: str) -> int:
 
 
 def _layout(path: Path) -> dict:
-    """What a fresh store holds, minus the creation time."""
+    """What a fresh store holds, minus the creation time and the random id of each creation."""
     attrs = dict(zarr.open_group(path, mode="r").attrs)
     attrs.pop("created")
+    attrs.pop("store_id")
     return {"attrs": attrs, "arrays": _arrays(path),
             "files": sorted(str(p.relative_to(path)) for p in path.rglob("*") if "sweep.lock" not in p.name)}
 

@@ -1,0 +1,72 @@
+"""The worker's own chunk writer writes exactly the bytes zarr writes, and reads back through zarr.
+
+Reference: zarr itself (``zarr.Array.__setitem__`` with the store's codec chain), the open
+implementation of the Zarr v3 format; the writer must be a faster path to the same files.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import zarr
+
+from kernels.network import KernelResult
+from sweep import store
+from sweep.chunks import ChunkWriter
+
+DTYPES = {"int32": -1, "float64": -1.0}
+
+
+def _twin_stores(tmp_path, dtype, n_r=25, rb=10, n_t=7, n_s=3):
+    """Two stores of identical layout: one written by zarr, one by ChunkWriter."""
+    paths = []
+    for name in ("zarr", "ours"):
+        g = zarr.open_group(tmp_path / name, mode="w")
+        g.attrs["store_id"] = "x"
+        store._array(g, "counts", (2, n_r, n_t, n_s), (1, rb, n_t, n_s), dtype, -1,
+                     ("point", "replicate", "time", "species"), store._WRITE_EMPTY)
+        store._array(g, "status", (2, n_r), (1, rb), "int8", -1, ("point", "replicate"), store._WRITE_EMPTY)
+        store._array(g, "events", (2, n_r), (1, rb), "int64", -1, ("point", "replicate"), store._WRITE_EMPTY)
+        paths.append(tmp_path / name)
+    return paths
+
+
+@pytest.mark.parametrize("dtype", sorted(DTYPES))
+def test_the_same_bytes_as_zarr_full_edge_and_fill_valued_chunks(tmp_path, dtype):
+    by_zarr, ours = _twin_stores(tmp_path, dtype)
+    rng = np.random.default_rng(3)
+    blocks = [(0, 0, 10), (0, 10, 20), (1, 20, 25), (1, 0, 10)]  # (1, 20:25) is the short edge chunk
+    for point, start, stop in blocks:
+        n = stop - start
+        counts = rng.integers(0, 500, size=(n, 7, 3)).astype(dtype)
+        if (point, start) == (1, 0):
+            counts[:] = -1  # a block equal to the fill value (every replicate failed) is still written
+        result = KernelResult(counts, rng.integers(0, 3, size=n).astype(np.int8),
+                              rng.integers(0, 10**6, size=n).astype(np.int64))
+        g = zarr.open_group(by_zarr, mode="r+")
+        for name, values in zip(store.DATA_ARRAYS, result):
+            g[name].with_config(store._WRITE_EMPTY)[point, start:stop] = values
+        sums = store.write_block(ours, point, start, stop, result, store_id="x")
+        for name, crc in zip(store.DATA_ARRAYS, sums):
+            key = f"{name}/c/{point}/{start // 10}" + ("/0/0" if name == "counts" else "")
+            assert (ours / key).read_bytes() == (by_zarr / key).read_bytes(), key
+            assert crc == store.trailing_checksum(ours / key)
+    a, b = zarr.open_group(by_zarr, mode="r"), zarr.open_group(ours, mode="r")
+    for name in store.DATA_ARRAYS:
+        np.testing.assert_array_equal(a[name][:], b[name][:])
+    assert not list(ours.rglob("*.partial"))
+
+
+def test_a_store_created_again_at_the_same_path_is_opened_afresh(tmp_path):
+    by_zarr, ours = _twin_stores(tmp_path, "int32")
+    w1 = ChunkWriter.of(ours, "x")
+    assert ChunkWriter.of(ours, "x") is w1
+    assert ChunkWriter.of(ours, "y") is not w1  # another id: the store was created anew
+
+
+def test_a_chunk_written_over_is_replaced_whole(tmp_path):
+    _, ours = _twin_stores(tmp_path, "int32")
+    for value in (5, 7):
+        block = KernelResult(np.full((10, 7, 3), value, np.int32), np.zeros(10, np.int8), np.zeros(10, np.int64))
+        store.write_block(ours, 0, 0, 10, block, store_id="x")
+    assert (zarr.open_group(ours, mode="r")["counts"][0, :10] == 7).all()
