@@ -52,6 +52,20 @@ vmax = [0.0, 10.0, 40.0]
 n = [1.0, 4.0]
 """
 
+# Immigration-death (tests/conftest.py) where k = 0 keeps A at 0: its Fano factor is undefined there.
+GRID_BODY = """
+[run]
+replicates = 40
+replicates_per_task = 40
+seed = {seed}
+[time]
+end = 5.0
+samples = 6
+[design.vary]
+k = [0.0, 2.0, 8.0]
+g = [0.5, 2.0]
+"""
+
 # Immigration-death with an event cap (120 events) that only the slowest points stay under.
 CAPPED_BODY = """
 [run]
@@ -149,6 +163,14 @@ def hill(tmp_path_factory, spec_writer, cluster):
 
 
 @pytest.fixture(scope="module")
+def grid(tmp_path_factory, spec_writer, cluster):
+    folder = tmp_path_factory.mktemp("grid")
+    spec = sweep.load(spec_writer(folder, GRID_BODY.format(seed=4)), store=folder / "grid.zarr")
+    sweep.run(spec, scheduler=cluster)
+    return spec.store
+
+
+@pytest.fixture(scope="module")
 def capped(tmp_path_factory, spec_writer, cluster):
     folder = tmp_path_factory.mktemp("capped")
     spec = spec_writer(folder, CAPPED_BODY)
@@ -230,7 +252,8 @@ def test_help_screens_keep_brackets_and_show_no_type_noise(name):
 
 def test_parameter_named_n_analyses(hill, tmp_path):
     """Bug 2: `ValueError: cannot insert n, already exists` after the analysis group was partly written."""
-    result = runner.invoke(app, ["analyze", str(hill), "--species", "A", "-o", str(tmp_path / "t")])
+    # the old spelling --tables (still accepted) so that this test ran on the code before the fix
+    result = runner.invoke(app, ["analyze", str(hill), "--species", "A", "--tables", str(tmp_path / "t")])
     assert result.exit_code == 0, result.output
     stats = pd.read_csv(tmp_path / "t" / "statistics.csv")
     assert list(stats.columns[:6]) == ["point", "vmax", "param.n", "time", "species", "n"]
@@ -260,14 +283,14 @@ def test_analysis_group_is_written_whole_or_not_at_all(hill, tmp_path, monkeypat
 # --- 3. the adequacy table's worst point ------------------------------------------------------------
 
 
-def test_worst_point_is_the_largest_not_the_first_defined(hill, tmp_path):
-    """Bug 3: with the Fano factor undefined at vmax = 0, the table named the first defined point."""
-    result = runner.invoke(app, ["analyze", str(hill), "-s", "fano", "--species", "A", "-o", str(tmp_path / "w")],
+def test_worst_point_is_the_largest_not_the_first_defined(grid, tmp_path):
+    """Bug 3: with the Fano factor undefined at k = 0, the table named the first defined point."""
+    result = runner.invoke(app, ["analyze", str(grid), "-s", "fano", "--tables", str(tmp_path / "w")],
                            terminal_width=200)
     assert result.exit_code == 0, result.output
     table = pd.read_csv(tmp_path / "w" / "adequacy.csv")
     ratio = (table["se"] / table["target_se"]).to_numpy()
-    assert np.isnan(ratio[:2]).all()  # vmax = 0: the mean is 0
+    assert np.isnan(ratio[:2]).all()  # k = 0: the mean is 0
     expected = int(table["point"][np.nanargmax(ratio)])
     assert expected != 2  # the first defined point: what the old code printed
     adequacy = result.output.split("Replicate adequacy", 1)[1]
@@ -279,10 +302,10 @@ def test_worst_point_is_the_largest_not_the_first_defined(hill, tmp_path):
 # --- 5. the worked example's histogram, --time, and where the tables go -------------------------------
 
 
-def test_histogram_with_stationary_from_still_writes_histograms_at_the_last_time(hill, tmp_path):
+def test_histogram_with_stationary_from_still_writes_histograms_at_the_last_time(grid, tmp_path):
     """Bug 5: `--histogram A --stationary-from 2` wrote stationary.csv but no histograms.csv."""
-    result = runner.invoke(app, ["analyze", str(hill), "--histogram", "A", "--stationary-from", "2",
-                                 "-o", str(tmp_path / "h")])
+    result = runner.invoke(app, ["analyze", str(grid), "--histogram", "A", "--stationary-from", "2",
+                                 "--tables", str(tmp_path / "h")])
     assert result.exit_code == 0, result.output
     hist = pd.read_csv(tmp_path / "h" / "histograms.csv")
     assert set(hist["time"]) == {5.0} and (tmp_path / "h" / "stationary.csv").is_file()
