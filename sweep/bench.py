@@ -2,8 +2,8 @@
 
 The networks are our own choice of textbook models, each small and with a known answer:
 
-- ``isomerization``: A <-> B, first-order and reversible; binomial at steady state (e.g. Gillespie
-  1977, J. Phys. Chem. 81:2340, one of its worked examples; common practice as a first test);
+- ``isomerization``: A <-> B, the textbook first-order reversible reaction; binomial at steady
+  state (common practice: independent molecules, each in B with probability k_f / (k_f + k_b));
 - ``gene_expression``: the two-stage model of transcription and translation, protein Fano factor
   1 + k_p / (g_m + g_p) (Thattai & van Oudenaarden 2001, PNAS 98:8614);
 - ``dimerization``: 2 A <-> B, the simplest second-order reaction, with the pair-counting
