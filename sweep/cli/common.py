@@ -128,7 +128,7 @@ def parse_times(items: Sequence[str] | None, option: str = "--time", source: str
 
 
 def _piece(text: str, option: str, source: str, kind, whole: str):
-    what = "point" if kind is int else "time"
+    form = "FIRST:LAST" if kind is int else "START:END"
     try:
         if ":" in text:
             first, last = text.split(":", 1)
@@ -139,7 +139,7 @@ def _piece(text: str, option: str, source: str, kind, whole: str):
             return (low, high)
         return kind(text)
     except ValueError as exc:
-        raise SpecError(source, option, f"not a {what} or a FIRST:LAST range", whole,
+        raise SpecError(source, option, f"not a number or a {form} range", whole,
                         POINT_FORMS if kind is int else TIME_FORMS) from exc
 
 
