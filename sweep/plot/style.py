@@ -58,6 +58,16 @@ def panels(n: int, sharey: bool = True):
     return fig, axes[:n], grid
 
 
+def label_axes(fig, axes, overlaid: bool, xlabel: str, ylabel: str) -> None:
+    """Axis labels: on the one axes, or once for the whole grid of small multiples."""
+    if overlaid:
+        axes[0].set_xlabel(xlabel)
+        axes[0].set_ylabel(ylabel)
+        return
+    fig.supxlabel(xlabel, fontsize=14)
+    fig.supylabel(ylabel, fontsize=14)
+
+
 def colours(n: int) -> list[str]:
     """``n`` distinct colours (``n`` <= len(PALETTE): more series than that become small multiples)."""
     if n > len(PALETTE):
@@ -69,8 +79,17 @@ def legend_outside(fig, ax=None, columns: int = 1) -> None:
     """The legend under the axes, outside the data (constrained layout makes room for it)."""
     source = ax if ax is not None else fig.axes[0]
     handles, labels = source.get_legend_handles_labels()
+    if max(map(len, labels), default=0) > 32:
+        columns = 1  # two columns of long labels would run off the figure
     if handles:
         fig.legend(handles, labels, loc="outside lower center", ncols=columns, frameon=False)
+
+
+def title(fig, *lines: str, width: int = 72) -> None:
+    """The figure's title, each line wrapped to ``width`` characters so none runs off the figure."""
+    import textwrap
+
+    fig.suptitle("\n".join(textwrap.fill(line, width) for line in lines if line), fontsize=14)
 
 
 def check_points(ds: xr.Dataset, chosen: list[int], src: str = "sweep plot") -> None:

@@ -75,9 +75,9 @@ def sensitivity(path: str | Path, statistic: str | None = None, species: str | N
         ax.set_xticks(np.arange(len(parameters)), parameters)
         if condition:
             ax.set_title(condition, fontsize=12)
-    for ax in axes:
-        ax.set_xlabel("parameter")
-        ax.set_ylabel(_LABELS.get(method, "index"))
+    from sweep.plot.style import label_axes
+
+    label_axes(fig, axes, len(axes) == 1, "parameter", _LABELS.get(method, "index"))
     points = f"{int(first['points'])} points"
     if "design_points" in first and np.isfinite(first["design_points"]) and first["design_points"] > first["points"]:
         points = f"{int(first['points'])} of {int(first['design_points'])} points"

@@ -23,7 +23,7 @@ from sweep.analysis.options import NAMES, SPECIES_STATISTICS
 from sweep.analysis.source import open_store, time_index
 from sweep.errors import SpecError
 from sweep.plot.style import (MAX_OVERLAY, at_time, choose_points, colours, count_label, figure, finished,
-                              legend_outside, panels, point_label, species_of, time_label, time_unit, with_style)
+                              label_axes, legend_outside, panels, point_label, species_of, time_label, with_style)
 
 
 def _axes_for(chosen: list[int], sharey: bool = True):
@@ -83,31 +83,18 @@ def ensemble(path: str | Path, species: str | None = None, points: Sequence | No
             bimodal_points.append((p, first))
             ax.plot(t, m_low, color=color, lw=2, ls="--", label=f"point {p}: the two modes' means (bimodal)")
             ax.plot(t, m_high, color=color, lw=2, ls="--")
-    for ax in set(axes):
-        ax.set_xlabel(time_label(unit))
-        ax.set_ylabel(count_label(species))
-    if not overlaid:
-        for ax in axes:
-            if not ax.get_subplotspec().is_last_row():
-                ax.set_xlabel("")
-            if not ax.get_subplotspec().is_first_col():
-                ax.set_ylabel("")
-    title = f"{species}: mean, {low:.0%}-{high:.0%} band, {samples} sample trajectories"
+    label_axes(fig, axes, overlaid, time_label(unit), count_label(species))
+    title = (f"{species}: mean, {low:.0%}-{high:.0%} band, {samples} sample trajectories" if overlaid else
+             f"{species}: mean (thick), {low:.0%}-{high:.0%} band (shaded), {samples} sample trajectories (thin)")
+    note = ""
     if bimodal_points:
         where = ", ".join(f"point {p} from {at_time(first, unit)}" for p, first in bimodal_points[:4])
-        title += f"\nBimodal ({where}): dashed, the two modes' means; the mean and band describe neither"
-    fig.suptitle(title, fontsize=14)
+        note = f"Bimodal ({where}): dashed, each mode's mean; the mean and band describe neither mode"
+    style.title(fig, title, note)
     if overlaid:
         legend_outside(fig, axes[0], columns=2 if len(chosen) > 2 else 1)
-    else:
-        from matplotlib.lines import Line2D
-
-        keys = [Line2D([], [], color=palette[0], lw=2.5), Line2D([], [], color=palette[0], lw=0.8, alpha=0.55)]
-        names = ["mean", "sample trajectories"]
-        if bimodal_points:
-            keys.append(Line2D([], [], color=palette[0], lw=2, ls="--"))
-            names.append("the two modes' means (bimodal)")
-        fig.legend(keys, names, loc="outside lower center", ncols=len(keys), frameon=False)
+    # small multiples: the title is the key (thick line the mean, shaded the band, thin lines samples);
+    # a figure legend there would collide with the shared axis labels
     return fig
 
 
@@ -150,25 +137,18 @@ def distribution(path: str | Path, species: str | None = None, time: float | Non
             notes.append(p)
             ax.axvline(found.split + 0.5, color=color, ls=":", lw=2,
                        label=f"point {p}: bimodal, {found.low_share:.0%} below | {found.high_share:.0%} above")
-            top = ax.get_ylim()[1]
-            for where, share in ((found.low_peak, found.low_share), (found.high_peak, found.high_share)):
-                ax.annotate(f"{share:.0%}", (where, top), xytext=(0, -4), textcoords="offset points", ha="center",
-                            va="top", color=color, fontsize=12, fontweight="bold")
+            if not overlaid or len(chosen) == 1:  # overlaid, the legend says it: labels would collide
+                top = ax.get_ylim()[1]
+                for where, share in ((found.low_peak, found.low_share), (found.high_peak, found.high_share)):
+                    ax.annotate(f"{share:.0%}", (where, top), xytext=(0, -4), textcoords="offset points",
+                                ha="center", va="top", color=color, fontsize=12, fontweight="bold")
     xlabel = f"{count_label(species)} at {at_time(t, unit)}"
-    for ax in set(axes):
-        ax.set_xlabel(xlabel)
-        ax.set_ylabel("fraction of replicates")
-    if not overlaid:
-        for ax in axes:
-            if not ax.get_subplotspec().is_last_row():
-                ax.set_xlabel("")
-            if not ax.get_subplotspec().is_first_col():
-                ax.set_ylabel("")
-    title = f"Distribution of {species} at {at_time(t, unit)}"
+    label_axes(fig, axes, overlaid, xlabel, "fraction of replicates")
+    note = ""
     if notes:
-        title += (f"\nBimodal at point{'s' if len(notes) > 1 else ''} {', '.join(map(str, notes[:6]))}: dotted, the "
-                  "split between the modes; the mean describes neither")
-    fig.suptitle(title, fontsize=14)
+        note = (f"Bimodal at point{'s' if len(notes) > 1 else ''} {', '.join(map(str, notes[:6]))}: dotted, the "
+                "split between the modes; the mean describes neither mode")
+    style.title(fig, f"Distribution of {species} at {at_time(t, unit)}", note)
     if overlaid:
         legend_outside(fig, axes[0], columns=2)
     else:
@@ -211,15 +191,8 @@ def convergence(path: str | Path, statistic: str = "fano", species: str | None =
         ax.axhline(value[-1], color=color, ls=":", lw=1.2)
     for ax in set(axes):
         ax.set_xscale("log")
-        ax.set_xlabel("finished replicates used")
-        ax.set_ylabel(f"{NAMES[statistic]} of {species}, {at_time(t, unit)}")
-    if not overlaid:
-        for ax in axes:
-            if not ax.get_subplotspec().is_last_row():
-                ax.set_xlabel("")
-            if not ax.get_subplotspec().is_first_col():
-                ax.set_ylabel("")
-    fig.suptitle("Convergence with replicates (band: 95 %, delta-method se)", fontsize=14)
+    label_axes(fig, axes, overlaid, "finished replicates used", f"{NAMES[statistic]} of {species}, {at_time(t, unit)}")
+    style.title(fig, "Convergence with replicates (band: 95 %, delta-method se)")
     if overlaid:
         legend_outside(fig, axes[0], columns=1)
     return fig
