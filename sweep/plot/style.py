@@ -150,11 +150,13 @@ def finished(ds: xr.Dataset, point: int, species: str, time_index: int | slice =
 
 
 def species_of(ds: xr.Dataset, species: str | None, src: str = "sweep plot") -> str:
-    """``species`` checked against the store; if None, the first species of the model (the rule
-    is that simple so a user can predict it: put the species you plot most first, or name it)."""
+    """``species`` checked against the store; if None, the species the store names as its default
+    (``attrs["default_species"]``, for a spec key that names it), else the first species of the
+    model: a rule a user can predict (put the species you plot most first, or name it)."""
     names = [str(s) for s in ds["species"].values]
     if species is None:
-        return names[0]
+        named = ds.attrs.get("default_species")
+        return str(named) if named in names else names[0]
     if species not in names:
         raise SpecError(src, "--species", "not a species of this store", species, f"choose from: {', '.join(names)}")
     return species
