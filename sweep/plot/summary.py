@@ -8,7 +8,7 @@ from typing import Mapping
 import numpy as np
 
 from sweep.analysis import source, stats
-from sweep.analysis.options import SPECIES_STATISTICS, Output
+from sweep.analysis.options import Output
 from sweep.analysis.report import open_analysis
 from sweep.errors import SpecError
 from sweep.plot.style import figure, species_of, with_style
