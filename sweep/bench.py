@@ -1,11 +1,19 @@
 """Kernel speed benchmark: reaction events per CPU-second on built-in networks.
 
-The first four networks mirror a common reference set (isomerization, two-stage gene
-expression, dimerization, a 50-species chain) so that figures can be set beside an
-external C implementation of the direct method measured on the same machine. Two more
-are there for the other methods: a 100-reaction chain (many reactions, few touched per
-event: the next reaction method's case) and gene expression at ~10^4 proteins (high copy
-numbers: tau-leaping's case).
+The networks are our own choice of textbook models, each small and with a known answer:
+
+- ``isomerization``: A <-> B, the textbook first-order reversible reaction; binomial at steady
+  state (common practice: independent molecules, each in B with probability k_f / (k_f + k_b));
+- ``gene_expression``: the two-stage model of transcription and translation, protein Fano factor
+  1 + k_p / (g_m + g_p) (Thattai & van Oudenaarden 2001, PNAS 98:8614);
+- ``dimerization``: 2 A <-> B, the simplest second-order reaction, with the pair-counting
+  propensity c A (A - 1) / 2 (Gillespie 1977);
+- ``chain50``: a linear chain S0 <-> S1 <-> ... <-> S49 of first-order steps, a linear network
+  with exact moment equations (common practice); it stresses the search over many reactions.
+
+Two more are there for the other methods: a 100-reaction chain (many reactions, few touched per
+event: the next reaction method's case, Gibson & Bruck 2000) and gene expression at ~10^4
+proteins (high copy numbers: tau-leaping's case, Cao, Gillespie & Petzold 2006).
 
 Any registered method can be measured. For a method whose ``events`` are not reaction
 events (tau-leaping counts steps; the kernel module says so in ``EVENT_UNIT``), the
@@ -50,7 +58,7 @@ NETWORKS: dict[str, tuple[dict, float]] = {
                                     "b": {"reaction": "B -> 2 A", "rate": 0.5}}}, 400.0),
     "chain50": (_chain(50), 100.0),
     # S0 <-> S1 <-> ... <-> S50: 51 species, 50 forward + 50 backward reactions (one more link than
-    # chain50, which mirrors the reference set's 98-reaction chain). Many reactions, few touched per
+    # chain50, whose 49 links make 98 reactions). Many reactions, few touched per
     # event: where the next reaction method's heap beats the direct method's linear search.
     "chain100": (_chain(51), 100.0),
     # the same chain with 20 molecules on every site: every reaction is active from the start, so the

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import importlib.util
 import json
+import os
 import time as _time
 from dataclasses import dataclass
 from pathlib import Path
@@ -76,11 +77,22 @@ def export(path: str | Path, output: str | Path, *, format: str | None = None, p
     p_idx = _points(ds.sizes["point"], points, str(path))
     t_idx = _times(ds["time"].values, times, str(path))
     s_idx = _species([str(s) for s in ds["species"].values], species, str(path))
-    output.parent.mkdir(parents=True, exist_ok=True)
-    if fmt == "netcdf":
-        engine, rows = _netcdf(ds.isel(point=p_idx, time=t_idx, species=s_idx), output)
-    else:
-        engine, rows = "pyarrow", _table(path, ds, output, fmt, p_idx, t_idx, s_idx)
+    try:
+        output.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise StoreError(f"{output}: cannot create its folder: {exc.strerror or exc}") from exc
+    # written under a temporary name and moved in whole: a failed export never leaves half a
+    # file, nor destroys the file it would have replaced
+    partial = output.with_name(f".{output.name}.partial")
+    try:
+        if fmt == "netcdf":
+            engine, rows = _netcdf(ds.isel(point=p_idx, time=t_idx, species=s_idx), partial)
+        else:
+            engine, rows = "pyarrow", _table(path, ds, partial, fmt, p_idx, t_idx, s_idx)
+        os.replace(partial, output)
+    except BaseException:
+        partial.unlink(missing_ok=True)
+        raise
     return ExportSummary(output, fmt, rows, engine, _time.perf_counter() - started)
 
 
@@ -90,7 +102,7 @@ def _format(output: Path, format: str | None) -> str:
             raise SpecError("sweep export", "--format", "unknown format", format, "choose csv, parquet or netcdf")
         return format
     if output.suffix.lower() not in FORMATS:
-        raise SpecError("sweep export", "OUTPUT", "cannot tell the format from the file name", str(output),
+        raise SpecError("sweep export", "--output", "cannot tell the format from the file name", str(output),
                         "end it in .csv, .parquet or .nc, or pass --format")
     return FORMATS[output.suffix.lower()]
 

@@ -21,6 +21,18 @@ class FailedPoint:
 
 
 @dataclass(frozen=True)
+class LostReplicates:
+    """A point whose replicates were stopped at the event cap (status 1) or failed numerically (2)."""
+
+    point: int
+    run: int           # replicates with any result
+    finished: int
+    capped: int
+    numerical: int
+    params: dict[str, float]
+
+
+@dataclass(frozen=True)
 class StoreStatus:
     path: Path
     points: int
@@ -43,6 +55,9 @@ class StoreStatus:
     shards: tuple[claims.Claim, ...] = ()  # claims of `sweep run --shard` processes, live or stale
     adaptive: dict | None = None  # a [run.adaptive] sweep's rounds so far (sweep.adaptive.Outcome.summary)
     damaged: tuple[str, ...] = ()  # arrays that could not be read (`sweep status --verify` says more)
+    lost: tuple[LostReplicates, ...] = ()  # points that lost replicates, fewest finished first
+    max_events: int | None = None  # the event cap per replicate (run.max_events)
+    low_copy: dict | None = None  # an approximate method's low-copy report (sweep.analysis.validity), if made
 
     @property
     def tasks_not_needed(self) -> int:
@@ -89,7 +104,27 @@ def status(path: str | Path) -> StoreStatus:
         last_run=attrs.get("last_run"), param_names=names, species=species,
         writer=writer, writer_alive=None if writer is None else (not lock.is_stale(writer)
                                                                  if lock.is_stale(writer) is not None else None),
-        shards=tuple(claims.list_claims(path)), adaptive=attrs.get("adaptive"), damaged=tuple(damaged))
+        shards=tuple(claims.list_claims(path)), adaptive=attrs.get("adaptive"), damaged=tuple(damaged),
+        lost=_lost(codes, names, params), max_events=attrs.get("max_events"), low_copy=_low_copy(path, attrs))
+
+
+def _lost(codes: np.ndarray, names: tuple[str, ...], params: np.ndarray) -> tuple[LostReplicates, ...]:
+    capped, numerical = (codes == 1).sum(axis=1), (codes == 2).sum(axis=1)
+    finished, run = (codes == 0).sum(axis=1), (codes >= 0).sum(axis=1)
+    rows = [LostReplicates(int(p), int(run[p]), int(finished[p]), int(capped[p]), int(numerical[p]),
+                           _params_of(names, params, int(p))) for p in np.flatnonzero(capped + numerical)]
+    return tuple(sorted(rows, key=lambda r: (r.finished / max(r.run, 1), r.point)))
+
+
+def _low_copy(path: Path, attrs: dict) -> dict | None:
+    """The low-copy report: written by `sweep run` (root attribute), else by `sweep analyze`."""
+    if isinstance(attrs.get("low_copy"), dict):
+        return attrs["low_copy"]
+    try:
+        found = zarr.open_group(path, path="analysis", mode="r", use_consolidated=False).attrs.get("low_copy")
+    except Exception:  # no analysis yet
+        return None
+    return found if isinstance(found, dict) else None
 
 
 def _read(g: zarr.Group, name: str, damaged: list[str], fallback: np.ndarray) -> np.ndarray:

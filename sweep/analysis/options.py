@@ -78,19 +78,24 @@ class Output:
     species: str
     time: float | None
     threshold: str | None = None
+    time_unit: str | None = None  # the store's (attrs["time_unit"]); None: the store names none
 
     @property
     def label(self) -> str:
         subject = self.threshold if self.threshold is not None else self.species
-        at = f" at t={self.time:g}" if self.time is not None else ""
+        at = f" at t={self.time:g}{self._unit}" if self.time is not None else ""
         return f"{self.statistic}({subject}){at}"
 
     @property
     def description(self) -> str:
-        """Readable, for axis labels and titles: 'Fano factor of protein at t = 600'."""
+        """Readable, for axis labels and titles: 'Fano factor of protein at t = 600 min'."""
         subject = f"{self.threshold}" if self.threshold is not None else f"of {self.species}"
-        at = f" at t = {self.time:g}" if self.time is not None else ""
+        at = f" at t = {self.time:g}{self._unit}" if self.time is not None else ""
         return f"{NAMES[self.statistic]} {subject}{at}"
+
+    @property
+    def _unit(self) -> str:
+        return f" {self.time_unit}" if self.time_unit else ""
 
 
 @dataclass(frozen=True)
@@ -101,27 +106,28 @@ class AnalysisOptions:
     ----------
     quantiles : quantile levels of each species' count at each point and time.
     thresholds : conditions for the fraction meeting them and first-passage times.
-    histogram_species : species whose distributions are tabulated (default: none).
-    histogram_times : sample times of the at-time histograms (default: the last).
+    histogram_species : species whose distributions are tabulated (default: none), at ``times``.
     stationary_from : pool all samples at times >= this into a stationary histogram (None: no).
     bins : at most this many bins per histogram (whole-number widths; counts are integers).
     statistics : statistics whose sensitivity and standard error are reported.
     species : species of those statistics (default: every species).
-    time : sample time of those statistics (default: the last).
+    times : sample times of those statistics, of the histograms and of the bimodality check: each
+        a time (the nearest sample is taken) or an inclusive ``(start, end)`` range of samples
+        (default: the last sample).
     precision : target standard error, relative to the value unless ``relative`` is false.
-    tables : folder for the CSV tables (default: ``<store>_analysis`` beside the store).
+    tables : folder for the CSV tables (default: beside the store, named after it: the tables of
+        ``results/reporter.zarr`` go to ``results/reporter_analysis/``).
     seed : seed of the bootstrap confidence intervals (Sobol, Morris).
     """
 
     quantiles: tuple[float, ...] = (0.05, 0.25, 0.5, 0.75, 0.95)
     thresholds: tuple[Threshold, ...] = ()
     histogram_species: tuple[str, ...] = ()
-    histogram_times: tuple[float, ...] = ()
     stationary_from: float | None = None
     bins: int = 50
     statistics: tuple[str, ...] = ("mean", "fano")
     species: tuple[str, ...] = ()
-    time: float | None = None
+    times: tuple[float | tuple[float, float], ...] = ()
     precision: float = 0.05
     relative: bool = True
     tables: str | None = None

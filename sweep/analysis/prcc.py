@@ -10,6 +10,10 @@ Significance: t = r sqrt(df / (1 - r^2)) with df = n - 2 - p, p = number of othe
 parameters, follows Student's t under no association (Marino et al. 2008, eq. 9); the
 p-value is two-sided. The confidence interval uses Fisher's z = atanh(r) with standard error
 1 / sqrt(n - 3 - p) (the partial-correlation version of Fisher 1924).
+
+A PRCC is reported only from at least ``d + 3`` points with a value (d parameters), the fewest
+for which both the t-test (df >= 2) and the interval exist; from fewer it is NaN with a note,
+never a number: two points give a PRCC of exactly +-1 whatever the model does.
 """
 
 from __future__ import annotations
@@ -40,8 +44,13 @@ def indices(x: np.ndarray, y: np.ndarray, names: Sequence[str], facts: Mapping[s
     df = n - 2 - (d - 1)
     rows = []
     for j, name in enumerate(names):
+        if n < d + 3:
+            rows.append({"parameter": name, "index": "PRCC", "value": np.nan, "conf_low": np.nan, "conf_high": np.nan,
+                         "p_value": np.nan, "note": f"too few points with a value ({n} of {keep.size}; PRCC of {d} "
+                                                    f"parameter{'s' if d != 1 else ''} needs at least {d + 3})"})
+            continue
         r = prcc(x, y, j)
-        note = "" if df > 1 else f"too few points ({n}) for {d} parameters"
+        note = ""
         if not np.isfinite(r) and not note:
             note = "undefined: the parameter or the output is constant once the others are accounted for"
         rows.append({"parameter": name, "index": "PRCC", "value": r, **_significance(r, df, n, d), "note": note})

@@ -17,7 +17,9 @@ import pandas as pd
 
 from sweep import analysis
 
-COLUMNS = ("method", "condition", "parameter", "index", "value", "conf_low", "conf_high", "p_value", "points", "note")
+#: ``points``: points with a value the index was computed from; ``design_points``: points of the design (condition)
+COLUMNS = ("method", "condition", "parameter", "index", "value", "conf_low", "conf_high", "p_value", "points",
+           "design_points", "note")
 
 
 def method_for(facts: Mapping[str, Any]) -> str | None:
@@ -63,6 +65,7 @@ def indices(facts: Mapping[str, Any], points: np.ndarray, y: np.ndarray, seed: i
         table.insert(0, "condition", label)
         table.insert(0, "method", method)
         table["points"] = int(np.count_nonzero(np.isfinite(np.asarray(y)[rows])))
+        table["design_points"] = int(len(rows))
         tables.append(table)
     return pd.concat(tables, ignore_index=True)[list(COLUMNS)]
 

@@ -76,6 +76,31 @@ def time_index(ds: xr.Dataset, t: float | None, source: str = "sweep analyze", f
     return float(times[int(np.argmin(np.abs(times - t)))])
 
 
+def sample_times(ds: xr.Dataset, wanted, source: str = "sweep analyze", field: str = "--time") -> list[float]:
+    """Sample times for ``wanted``: times (the nearest sample each) and inclusive ``(start, end)``
+    ranges (every sample in them), in the order given, without repeats; the last sample if empty.
+
+    Raises
+    ------
+    SpecError
+        A time outside the sampled interval, or a range holding no sample.
+    """
+    grid = ds["time"].values
+    if not wanted:
+        return [float(grid[-1])]
+    out: list[float] = []
+    for item in wanted:
+        if isinstance(item, tuple):
+            hit = grid[(grid >= item[0]) & (grid <= item[1])]
+            if not hit.size:
+                raise SpecError(source, field, f"no sample time in this range (samples {grid[0]:g}..{grid[-1]:g})",
+                                f"{item[0]:g}:{item[1]:g}")
+            out.extend(float(t) for t in hit)
+        else:
+            out.append(time_index(ds, float(item), source, field))
+    return list(dict.fromkeys(out))
+
+
 def check_species(ds: xr.Dataset, names, source: str = "sweep analyze", field: str = "--species") -> None:
     """Raise SpecError naming the store's species if any of ``names`` is not one of them."""
     known = [str(s) for s in ds["species"].values]

@@ -13,13 +13,25 @@
                                parameter, index, value, conf_low, conf_high, p_value, points
 ``adequacy.csv``               output, point, parameters, value, se, relative_se, replicates,
                                target_se, meets, replicates_needed
+``modes.csv``                  point, parameters, time, species, replicates, low_share,
+                               high_share, split, low_mean, high_mean, low_peak, high_peak,
+                               ashman_d: every clearly bimodal distribution (``modes``)
 =============================  ==============================================================
+
+Parameter columns carry the parameter's name, unless that name is one of the tables' own
+column names (``RESERVED``: a parameter called ``n``, ``mean`` or ``time``); such a column is
+written ``param.<name>`` (``param.n``). Parameter names hold no dots, so that name is free.
+
+Each file is written beside its place under a temporary name and moved in when complete, so a
+table is never half-written, and an earlier analysis's tables stay until the new ones are done.
 """
 
 from __future__ import annotations
 
 from pathlib import Path
 from typing import Sequence
+
+import os
 
 import numpy as np
 import pandas as pd
@@ -29,13 +41,33 @@ from sweep.errors import StoreError
 
 POINTS_PER_BLOCK = 256
 TABLES = ("statistics.csv", "thresholds.csv", "passage.csv", "passage_distribution.csv", "histograms.csv",
-          "stationary.csv", "sensitivity.csv", "adequacy.csv")
+          "stationary.csv", "sensitivity.csv", "adequacy.csv", "modes.csv")
 _STATISTICS = ("n", "mean", "var", "sd", "cv", "fano", "min", "max")
 _PASSAGE = {"passage_n": "replicates", "passage_crossed": "passed", "never": "never", "passage_mean": "mean",
             "passage_sd": "sd", "passage_median": "median"}
+#: every column name a table uses besides the parameters' (quantile columns, q0.05, hold a dot)
+RESERVED = frozenset({
+    "point", "time", "species", "threshold", *_STATISTICS, *(f"se_{v}" for v in ("mean", "var", "sd", "cv", "fano")),
+    "fraction", *_PASSAGE.values(), "pmf", "cdf", "bin_low", "bin_high", "output", "statistic", "method",
+    "condition", "parameter", "index", "value", "conf_low", "conf_high", "p_value", "points", "note", "se",
+    "relative_se", "replicates", "target_se", "meets", "replicates_needed", "low_share", "high_share", "split",
+    "low_mean", "high_mean", "low_peak", "high_peak", "ashman_d",
+})
 
 
-def write(results: xr.Dataset, sensitivity: pd.DataFrame, adequacy: pd.DataFrame, folder: Path) -> list[Path]:
+def param_column(name: str) -> str:
+    """The column of parameter ``name``: its name, or ``param.<name>`` where a table uses that name.
+
+    Example
+    -------
+    >>> param_column("k_tx"), param_column("n")
+    ('k_tx', 'param.n')
+    """
+    return f"param.{name}" if name in RESERVED else name
+
+
+def write(results: xr.Dataset, sensitivity: pd.DataFrame, adequacy: pd.DataFrame, folder: Path,
+          modes: pd.DataFrame | None = None) -> list[Path]:
     """Write every table that has data into ``folder``; return their paths.
 
     Raises
@@ -49,6 +81,24 @@ def write(results: xr.Dataset, sensitivity: pd.DataFrame, adequacy: pd.DataFrame
         raise StoreError(f"{folder}: cannot create the tables folder: {exc.strerror or exc}") from exc
     results = results.assign_coords(point=np.arange(results.sizes["point"]))
     names = [str(p) for p in results["param"].values]
+    try:
+        written = _write_all(results, sensitivity, adequacy, folder, modes, names)
+    except BaseException:
+        for name in TABLES:
+            _temporary(folder / name).unlink(missing_ok=True)
+        raise
+    for target in written:
+        os.replace(_temporary(target), target)
+    for stale in set(TABLES) - {p.name for p in written}:
+        (folder / stale).unlink(missing_ok=True)  # an earlier analysis's table this one did not redo
+    return written
+
+
+def _temporary(target: Path) -> Path:
+    return target.with_name(f".{target.name}.partial")
+
+
+def _write_all(results, sensitivity, adequacy, folder, modes, names) -> list[Path]:
     written = [_stream(results, folder / "statistics.csv", names, _statistics)]
     if "fraction" in results:
         written.append(_stream(results, folder / "thresholds.csv", names,
@@ -65,10 +115,16 @@ def write(results: xr.Dataset, sensitivity: pd.DataFrame, adequacy: pd.DataFrame
         written.append(_stream(results, folder / "stationary.csv", names, lambda b: _bins(b, "stationary")))
     for name, table in (("sensitivity", sensitivity), ("adequacy", adequacy)):
         target = folder / f"{name}.csv"
-        _to_csv(table, target, header=True)
+        _to_csv(table, _temporary(target), header=True)
         written.append(target)
-    for stale in set(TABLES) - {p.name for p in written}:
-        (folder / stale).unlink(missing_ok=True)  # an earlier analysis's table this one did not redo
+    if modes is not None and len(modes):
+        target = folder / "modes.csv"
+        table = modes.copy()
+        params = results["params"].values
+        for q, name in enumerate(names):
+            table.insert(1 + q, param_column(name), params[table["point"].to_numpy(), q])
+        _to_csv(table, _temporary(target), header=True)
+        written.append(target)
     return written
 
 
@@ -80,8 +136,8 @@ def _stream(results: xr.Dataset, target: Path, names: Sequence[str], rows) -> Pa
         table = rows(block)
         points = table["point"].to_numpy()
         for q, name in enumerate(names):
-            table.insert(1 + q, name, params[points, q])
-        _to_csv(table, target, header=first, mode="w" if first else "a")
+            table.insert(1 + q, param_column(name), params[points, q])
+        _to_csv(table, _temporary(target), header=first, mode="w" if first else "a")
         first = False
     return target
 

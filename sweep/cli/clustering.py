@@ -9,7 +9,7 @@ from typing import Any
 import typer
 
 from sweep import cluster as clusters
-from sweep.cli.common import console, errors
+from sweep.cli.common import console, errors, shown
 from sweep.spec import Spec
 
 
@@ -45,16 +45,16 @@ def announce(config: clusters.ClusterConfig, store: Path) -> None:
     """Print what will be submitted, the walltime plan and whether the traffic is encrypted."""
     config = clusters.for_store(config, store)
     where = f"partition {config.partition}" if config.partition else "the default partition"
-    console.print(f"Slurm: {config.min_jobs} to {config.max_jobs} jobs on {where}, each {config.cores} "
-                  f"core{'s' if config.cores != 1 else ''}, {config.memory}, walltime {config.walltime}, "
+    console.print(f"Slurm: {config.min_jobs} to {config.max_jobs} jobs on {shown(where)}, each {config.cores} "
+                  f"core{'s' if config.cores != 1 else ''}, {shown(config.memory)}, walltime {shown(config.walltime)}, "
                   f"{config.workers_per_job} worker{'s' if config.workers_per_job != 1 else ''}", highlight=False)
     console.print(f"workers retire {config.margin_seconds:.0f} s (± {config.stagger_seconds:.0f} s) before the "
                   "walltime; new jobs take their place while work remains", highlight=False)
-    console.print(f"job logs: {config.log_dir}", highlight=False)
+    console.print(f"job logs: {shown(config.log_dir)}", highlight=False)
     if config.tls:
         console.print("scheduler and workers talk over TLS with a temporary certificate", highlight=False)
     else:
-        errors.print(f"[bold yellow]warning:[/] TLS is off (tls = false, from {config.where('tls')}): "
+        errors.print(f"[bold yellow]warning:[/] TLS is off (tls = false, from {shown(config.where('tls'))}): "
                      "anyone who can reach the scheduler's port can run code as you; "
                      "leave tls on unless the network is yours alone", highlight=False)
 

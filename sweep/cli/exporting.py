@@ -8,7 +8,8 @@ from typing import Annotated
 
 import typer
 
-from sweep.cli.common import console, duration, exits_on_errors, si
+from sweep.cli.common import (POINT_FORMS, TIME_FORMS, console, duration, exits_on_errors, parse_points, parse_times,
+                              shown, si, store_path)
 from sweep.errors import SpecError
 
 
@@ -20,12 +21,13 @@ class Format(StrEnum):
 
 @exits_on_errors
 def export(
-    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
-    output: Annotated[Path, typer.Argument(metavar="OUTPUT", help="File to write: .csv, .parquet or .nc.")],
-    format: Annotated[Format | None, typer.Option("--format", "-f", help="Format (default: from OUTPUT's suffix).")] = None,
-    point: Annotated[list[str] | None, typer.Option("--point", "-p", help="Point index or inclusive range FIRST:LAST (repeat; default: all).")] = None,
+    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run` (or its spec).")],
+    old_output: Annotated[Path | None, typer.Argument(metavar="OUTPUT", hidden=True, help="Old place of --output.")] = None,
+    output: Annotated[Path | None, typer.Option("--output", "-o", help="File to write: .csv, .parquet or .nc.")] = None,
+    format: Annotated[Format | None, typer.Option("--format", "-f", help="Format (default: from the --output suffix).")] = None,
+    point: Annotated[list[str] | None, typer.Option("--point", "-p", help=f"Points: {POINT_FORMS} (default: all).")] = None,
     species: Annotated[list[str] | None, typer.Option("--species", help="Species (repeat; default: all).")] = None,
-    time: Annotated[list[str] | None, typer.Option("--time", "-t", help="Sample time (nearest) or inclusive range START:END (repeat; default: all).")] = None,
+    time: Annotated[list[str] | None, typer.Option("--time", "-t", help=f"Sample times: {TIME_FORMS} (default: all).")] = None,
 ) -> None:
     """Export trajectories as a tidy CSV or Parquet table, or the whole Dataset as NetCDF.
 
@@ -34,23 +36,17 @@ def export(
     """
     from sweep.export import export as run_export
 
-    summary = run_export(store, output, format=str(format) if format else None,
-                         points=[_item(p, "--point", int) for p in point or ()], species=species,
-                         times=[_item(t, "--time", float) for t in time or ()])
+    if output is not None and old_output is not None and output != old_output:
+        raise SpecError("sweep export", "--output", "given twice, as --output and as a second argument",
+                        f"{old_output}", "give the file once, as -o/--output FILE")
+    target = output or old_output
+    if target is None:
+        raise SpecError("sweep export", "--output", "missing", fix="name the file to write: -o/--output FILE.csv, "
+                        ".parquet or .nc")
+    store = store_path(store)
+    summary = run_export(store, target, format=str(format) if format else None,
+                         points=parse_points(point, "--point", "sweep export"), species=species,
+                         times=parse_times(time, "--time", "sweep export"))
     what = "rows" if summary.format != "netcdf" else "samples"
-    console.print(f"wrote {summary.path} ({summary.format}, {si(summary.rows)} {what}, {summary.engine}) "
-                  f"in {duration(summary.seconds)}", highlight=False)
-
-
-def _item(text: str, field: str, kind):
-    """'3' -> 3, '0:5' -> (0, 5): a value or an inclusive range."""
-    try:
-        if ":" in text:
-            first, last = text.split(":", 1)
-            low, high = kind(first), kind(last)
-            if high < low:
-                raise SpecError("sweep export", field, "range end is before its start", text)
-            return (low, high)
-        return kind(text)
-    except ValueError as exc:
-        raise SpecError("sweep export", field, "not a number or a FIRST:LAST range", text) from exc
+    console.print(f"wrote {shown(summary.path)} ({summary.format}, {si(summary.rows)} {what}, {summary.engine}) "
+                  f"in {duration(summary.seconds)}", highlight=False, soft_wrap=True)

@@ -9,7 +9,7 @@ import typer
 from rich.table import Table
 
 import sweep
-from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, shown
+from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, lost_lines, shown, store_path
 from sweep.status import verify as verify_store
 
 
@@ -28,14 +28,15 @@ def _adaptive_rows(table: Table, st: sweep.StoreStatus) -> None:
 
 @exits_on_errors
 def status(
-    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
+    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run` (or its spec: its store is shown).")],
     verify: Annotated[bool, typer.Option("--verify", help="Re-read every chunk marked done; unmark bad ones so a rerun repairs them.")] = False,
 ) -> None:
     """Show done/failed/pending tasks, replicates stopped early, and the spec the store holds."""
+    store = store_path(store)
     st = sweep.status(store)
     table = Table(title=shown(st.path), show_header=False, title_justify="left")
     table.add_column(style="bold")
-    table.add_column()
+    table.add_column(overflow="fold")
     needed = st.tasks_total - st.tasks_not_needed
     pct = 100.0 * st.tasks_done / needed if needed else 100.0
     skipped = f"{st.tasks_not_needed:,} not needed (adaptive), " if st.adaptive else ""
@@ -60,6 +61,7 @@ def status(
     for note in st.damaged:
         table.add_row("[red]damaged[/]", f"{shown(note)}; `sweep status --verify` repairs what it can")
     console.print(table)
+    _warnings(st)
     if st.failed:
         failed = Table(title="Failed tasks (a rerun tries them again)", title_justify="left")
         for col in ("point", "block", *st.param_names, "error"):
@@ -70,6 +72,25 @@ def status(
         console.print(failed)
     if verify:
         _verify(store)
+
+
+def _warnings(st: sweep.StoreStatus) -> None:
+    """Lost replicates, and an approximate method at low copy numbers: results that only look fine."""
+    from sweep.analysis.validity import APPROXIMATE, describe_low_copy
+
+    for i, line in enumerate(lost_lines(st.lost, st.points, st.max_events)):
+        console.print(("[yellow]warning:[/] " if i == 0 else "") + shown(line), highlight=False, soft_wrap=True)
+    if st.method in APPROXIMATE:
+        lines = describe_low_copy(st.low_copy or {})
+        if st.low_copy is None:
+            lines = [f"method {st.method} is approximate: not checked for low copy numbers yet (`sweep analyze` "
+                     "checks it)"]
+        elif not lines:
+            console.print(f"low copy numbers: none (method {shown(st.method)}; no species below "
+                          f"{st.low_copy.get('threshold', 10):g} molecules in {st.low_copy.get('share', 0.05):.0%} "
+                          "of its samples)", highlight=False)
+        for i, line in enumerate(lines):
+            console.print(("[yellow]warning:[/] " if i == 0 else "  ") + shown(line), highlight=False, soft_wrap=True)
 
 
 def _verify(store: Path) -> None:

@@ -14,7 +14,8 @@ from rich.table import Table
 import sweep
 from sweep import store as store_mod
 from sweep.cli import clustering, sharding
-from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, shown, si
+from sweep.cli.common import (EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, exits_on_errors, lost_lines,
+                              shown, si)
 
 EXIT_INTERRUPTED = 130  # the shell's convention for a run stopped by SIGINT
 
@@ -50,9 +51,10 @@ def run(
         " " + shlex.join(clustering.resume_words(cluster, profile, flags)) if batch else "")
     if fresh and store_mod.exists(spec.store) and not yes:
         if not sys.stdin.isatty():
-            errors.print(f"[bold red]error:[/] --fresh would delete {spec.store}; add --yes to confirm")
+            errors.print(f"[bold red]error:[/] --fresh would delete {shown(spec.store)}; add --yes to confirm",
+                         highlight=False, soft_wrap=True)
             raise typer.Exit(EXIT_BAD_INPUT)
-        typer.confirm(f"Delete {spec.store} and start over?", abort=True)
+        typer.confirm(f"Delete {spec.store} and start over?", abort=True)  # click prints this: no markup
     bar = Progress(
         TextColumn("[bold]{task.description}"), BarColumn(), MofNCompleteColumn(), TextColumn("tasks"),
         TextColumn("{task.fields[rate]} events/s"), TimeElapsedColumn(), TextColumn("ETA"), TimeRemainingColumn(),
@@ -64,11 +66,11 @@ def run(
         for line in started.repaired:
             errors.print(f"[yellow]repaired:[/] {shown(line)}")
         if batch is not None:
-            console.print(f"Dask scheduler: {started.address}", highlight=False)
+            console.print(f"Dask scheduler: {shown(started.address)}", highlight=False)
         if started.resumed:
             console.print(f"resuming: {started.pending:,} of {started.total:,} tasks left")
         if started.dashboard:
-            console.print(f"Dask dashboard: {started.dashboard}")
+            console.print(f"Dask dashboard: {shown(started.dashboard)}")
         bar.start()
         state["task"] = bar.add_task("simulating", total=started.total,
                                      completed=started.total - started.pending, rate="-")
@@ -88,13 +90,14 @@ def run(
         errors.print("interrupted; every finished task is recorded" if "task" in state
                      else "interrupted while the store was being created; the next run rebuilds it"
                      if store_mod.incomplete(spec.store) else "interrupted before any task ran; nothing was lost")
-        console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
+        console.print(f"resume with: {shown(resume)}", highlight=False, soft_wrap=True)
         raise typer.Exit(EXIT_INTERRUPTED) from None
     finally:
         bar.stop()
     _report(summary, spec)
+    _check_results(summary, spec)
     if summary.stopped or summary.failed:
-        console.print(f"resume with: {resume}", highlight=False, soft_wrap=True)
+        console.print(f"resume with: {shown(resume)}", highlight=False, soft_wrap=True)
         raise typer.Exit(EXIT_INTERRUPTED if summary.stopped == "interrupted" else EXIT_FAILED_TASKS)
 
 
@@ -102,14 +105,14 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     if summary.tasks_run == 0 and summary.complete:
         for line in summary.repaired:
             errors.print(f"[yellow]repaired:[/] {shown(line)}")
-        console.print(f"nothing to do: all {summary.tasks_total:,} tasks of {summary.store} are done")
+        console.print(f"nothing to do: all {summary.tasks_total:,} tasks of {shown(summary.store)} are done")
         return
     title = "Sweep finished" if summary.complete else (
-        f"Sweep stopped: {summary.stopped}" if summary.stopped else "Sweep finished with failures")
+        f"Sweep stopped: {shown(summary.stopped)}" if summary.stopped else "Sweep finished with failures")
     table = Table(title=title, show_header=False, title_justify="left")
     table.add_column(style="bold")
-    table.add_column()
-    table.add_row("store", str(summary.store))
+    table.add_column(overflow="fold")
+    table.add_row("store", shown(summary.store))
     table.add_row("points x replicates", f"{summary.points:,} x {spec.replicates:,}" + (
         f" to {spec.store_replicates:,} (adaptive)" if spec.adaptive else ""))
     left = summary.tasks_total - summary.tasks_run - summary.tasks_skipped
@@ -128,9 +131,35 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
         errors.print(f"[red]failed[/] point {failure.point} block {failure.block}: {shown(failure.error)}",
                      highlight=False)
     if len(summary.failed) > 20:
-        errors.print(f"... and {len(summary.failed) - 20} more; `sweep status {summary.store}` lists them all")
+        errors.print(f"... and {len(summary.failed) - 20} more; `sweep status {shown(summary.store)}` lists them all")
     if summary.complete:
-        console.print(f"open it with: [bold]xarray.open_zarr({str(summary.store)!r})[/]", highlight=False)
+        console.print(f"open it with: [bold]xarray.open_zarr({shown(repr(str(summary.store)))})[/]", highlight=False)
+
+
+def _check_results(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
+    """After a run: list the points that lost replicates, and check an approximate method's copy numbers.
+
+    The low-copy report is kept in the store's attributes (``attrs["low_copy"]``), where
+    `sweep status` and `sweep analyze` find it.
+    """
+    from sweep.analysis import validity
+
+    if not store_mod.exists(summary.store) or summary.tasks_run == 0:
+        return
+    st = sweep.status(summary.store)
+    for i, line in enumerate(lost_lines(st.lost, st.points, st.max_events)):
+        errors.print(("[yellow]warning:[/] " if i == 0 else "") + shown(line), highlight=False, soft_wrap=True)
+    if spec.method not in validity.APPROXIMATE:
+        return
+    with console.status("checking copy numbers (the method's assumptions)..."):
+        record = validity.low_copy(sweep.open_results(summary.store))
+    store_mod.finish_run(summary.store, low_copy=record)
+    lines = validity.describe_low_copy(record)
+    for i, line in enumerate(lines):
+        errors.print(("[yellow]warning:[/] " if i == 0 else "  ") + shown(line), highlight=False, soft_wrap=True)
+    if not lines:
+        console.print(f"copy numbers: no species spent {record['share']:.0%} of its samples below "
+                      f"{record['threshold']:g} molecules, where method {spec.method} would not hold")
 
 
 def _adaptive_rows(table: Table, outcome) -> None:

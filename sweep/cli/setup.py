@@ -10,7 +10,7 @@ import typer
 from rich.table import Table
 
 from sweep import load
-from sweep.cli.common import console, exits_on_errors
+from sweep.cli.common import console, exits_on_errors, shown
 from sweep.errors import SpecError
 from sweep.model import describe
 from sweep.tasks import make_tasks
@@ -32,8 +32,9 @@ def init(
     for name in _TEMPLATES:
         text = resources.files("sweep.templates").joinpath(name).read_text(encoding="utf-8")
         (directory / name).write_text(text, encoding="utf-8")
-        console.print(f"wrote [bold]{directory / name}[/]")
-    console.print(f"next: [bold]sweep check {directory / 'spec.toml'}[/], then [bold]sweep run {directory / 'spec.toml'}[/]")
+        console.print(f"wrote [bold]{shown(directory / name)}[/]")
+    console.print(f"next: [bold]sweep check {shown(directory / 'spec.toml')}[/], then "
+                  f"[bold]sweep run {shown(directory / 'spec.toml')}[/]")
 
 
 @exits_on_errors
@@ -49,11 +50,11 @@ def check(
     for col in ("name", "reaction", "rate"):
         reactions.add_column(col)
     for row in describe(model):
-        reactions.add_row(*row)
+        reactions.add_row(*map(shown, row))
     species = ", ".join(f"{s}={v}" for s, v in zip(model.species, model.initial))
     tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
-    console.print(f"[green]ok[/] {spec_path}  (SHA-256 {spec.sha256[:12]})")
-    console.print(f"species: {species}")
+    console.print(f"[green]ok[/] {shown(spec_path)}  (SHA-256 {spec.sha256[:12]})")
+    console.print(f"species: {shown(species)}")
     if model.omega is not None:
         console.print(f"units: molar constants in a volume of {model.volume:g} L (N_A V = {model.omega:.6g}); "
                       "mass-action constants become c = k m!/(N_A V)^(order-1), laws read concentrations")
@@ -64,13 +65,13 @@ def check(
     design.add_column("parameter")
     design.add_column("values")
     for q, name in enumerate(spec.param_names):
-        design.add_row(name, _values(points[:, q]))
+        design.add_row(shown(name), _values(points[:, q]))
     derived = dict(spec.derived)
     for name, expr in spec.derived:
-        design.add_row(f"[dim]{name}[/]", f"[dim]= {expr.text} (derived)[/]")
+        design.add_row(f"[dim]{shown(name)}[/]", f"[dim]= {shown(expr.text)} (derived)[/]")
     fixed = [(n, v) for n, v in spec.fixed if n not in spec.param_names and n not in derived]
     for name, value in fixed:
-        design.add_row(f"[dim]{name}[/]", f"[dim]{value:g} (fixed)[/]")
+        design.add_row(f"[dim]{shown(name)}[/]", f"[dim]{value:g} (fixed)[/]")
     console.print(design)
     n_t = len(spec.times)
     console.print(
@@ -78,11 +79,11 @@ def check(
         f"trajectories in {len(tasks):,} tasks of up to {spec.replicates_per_task:,} replicates\n"
         f"method {spec.method}, {n_t} samples from t={spec.times[0]:g} to t={spec.times[-1]:g}, "
         f"root seed {spec.seed}, event cap {spec.max_events:,}\n"
-        f"store {spec.store}"
+        f"store {shown(spec.store)}", highlight=False,
     )
     if spec.adaptive is not None:
         console.print(f"adaptive: more replicates, up to {spec.adaptive.max_replicates:,} per point, until the "
-                      f"{spec.adaptive.description}", highlight=False)
+                      f"{shown(spec.adaptive.description)}", highlight=False)
 
 
 def _conversions(spec) -> Table:
@@ -91,7 +92,7 @@ def _conversions(spec) -> Table:
     table.add_column("element")
     table.add_column("conversion")
     for element, text in spec.model_notes:
-        table.add_row(element, text)
+        table.add_row(shown(element), shown(text))
     return table
 
 

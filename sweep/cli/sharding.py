@@ -15,7 +15,7 @@ import typer
 import sweep
 from sweep import shard as shard_mod
 from sweep import walltime
-from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, si
+from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, shown, si
 
 EXIT_WALLTIME = walltime.EXIT_WALLTIME
 EXIT_INTERRUPTED = 130
@@ -41,7 +41,7 @@ def run_shard(spec_path: Path, store: Path | None, shard: str | None, time_left:
         _bad(f"--time-left {exc}")
     spec = sweep.load(spec_path, store=store)
     limit = "no time limit" if left is None else f"{duration(left)} left"
-    console.print(f"shard {index}/{count} of {spec.store} ({limit})", highlight=False)
+    console.print(f"shard {index}/{count} of {shown(spec.store)} ({limit})", highlight=False)
     summary = shard_mod.run_shard(spec, index, count, time_left=left, break_lock=break_lock,
                                   on_progress=_logger())
     _report(summary)
@@ -49,7 +49,7 @@ def run_shard(spec_path: Path, store: Path | None, shard: str | None, time_left:
 
 
 def _bad(message: str) -> None:
-    errors.print(f"[bold red]error:[/] {message}", highlight=False, soft_wrap=True)
+    errors.print(f"[bold red]error:[/] {shown(message)}", highlight=False, soft_wrap=True)
     raise typer.Exit(EXIT_BAD_INPUT)
 
 
@@ -70,13 +70,13 @@ def _report(s: shard_mod.ShardSummary) -> None:
                   f"{len(s.failed)} failed, {s.tasks_left} left, of {s.tasks_in_shard} in this shard "
                   f"({s.tasks_total} in the sweep); {s.events:,} events in {duration(s.seconds)}", highlight=False)
     for f in s.failed[:20]:
-        errors.print(f"[red]failed[/] point {f.point} block {f.block}: {f.error}", highlight=False)
+        errors.print(f"[red]failed[/] point {f.point} block {f.block}: {shown(f.error)}", highlight=False)
     if s.stopped == "walltime":
         console.print(f"stopped before the time limit: the next task would not finish in the "
                       f"{duration(max(s.time_left or 0.0, 0.0))} left; {s.tasks_left} task(s) left for a "
                       f"resubmission (exit code {EXIT_WALLTIME})", highlight=False)
     elif s.stopped:
-        console.print(f"stopped: {s.stopped}; {s.tasks_left} task(s) left; run the same command again to "
+        console.print(f"stopped: {shown(s.stopped)}; {s.tasks_left} task(s) left; run the same command again to "
                       "finish this shard", highlight=False)
 
 

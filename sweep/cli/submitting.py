@@ -13,7 +13,7 @@ import typer
 import sweep
 from sweep import cluster as clusters
 from sweep import submit as submit_mod
-from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors
+from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, shown
 
 
 class Template(StrEnum):
@@ -26,9 +26,10 @@ def submit(
     spec_path: Annotated[Path, typer.Argument(metavar="SPEC", help="The sweep spec (TOML).")],
     template: Annotated[Template, typer.Option(help="array: a job array of shards plus a finishing job; allocation: one job running a Dask cluster.")] = Template.array,
     store: Annotated[Path | None, typer.Option(help="Results store; overrides run.store.")] = None,
-    out: Annotated[Path | None, typer.Option(help="Folder for the scripts and logs (default: <store name>.slurm beside the store).")] = None,
+    output: Annotated[Path | None, typer.Option("--output", "-o", help="Folder for the scripts and logs (default: <store name>.slurm beside the store).")] = None,
+    out: Annotated[Path | None, typer.Option("--out", hidden=True, help="Old spelling of --output.")] = None,
     dry_run: Annotated[bool, typer.Option("--dry-run", help="Write and print the scripts; submit nothing.")] = False,
-    profile: Annotated[Path | None, typer.Option(help="Site profile: a TOML file with a [cluster] table (README: Running on a cluster).")] = None,
+    profile: Annotated[Path | None, typer.Option(help="Site profile: a TOML file with a \\[cluster] table (README: Running on a cluster).")] = None,
     partition: Annotated[str | None, typer.Option(envvar="SWEEP_PARTITION", help="Slurm partition.")] = None,
     account: Annotated[str | None, typer.Option(envvar="SWEEP_ACCOUNT", help="Slurm account to charge.")] = None,
     walltime: Annotated[str | None, typer.Option(envvar="SWEEP_WALLTIME", help="Time limit of each job, HH:MM:SS (default 01:00:00).")] = None,
@@ -50,7 +51,7 @@ def submit(
              "job_extra": job_extra or None, "setup": setup or None, "log_dir": str(log_dir) if log_dir else None}
     # one loader for both routes: profile < the spec's [cluster] table < flags (sweep.cluster)
     prof = clusters.resolve(profile, dict(spec.cluster), str(spec.path), flags)
-    out_dir = (out or submit_mod.default_out(spec.store)).resolve()
+    out_dir = (output or out or submit_mod.default_out(spec.store)).resolve()
     name = prof.job_name if prof.where("job_name") != "the default" else submit_mod.job_name(spec.store)
     job = submit_mod.Job(spec.path.resolve(), spec.store.resolve(), out_dir, out_dir / "profile.toml", name,
                          Path.cwd())
@@ -76,12 +77,12 @@ def submit(
 def _report(result: submit_mod.Submission, job: submit_mod.Job, dry_run: bool) -> None:
     watch = shlex.join(["sweep", "status", str(job.store)])
     if result.note == "complete":
-        console.print(f"nothing to submit: all {result.tasks_total:,} tasks of {job.store} are done", highlight=False)
+        console.print(f"nothing to submit: all {result.tasks_total:,} tasks of {shown(job.store)} are done", highlight=False)
         return
     if result.note == "budget spent":
         errors.print(f"{result.pending:,} of {result.tasks_total:,} tasks are still missing and no resubmission is "
-                     f"left; submit again with: sweep submit {shlex.quote(str(job.spec))} --store "
-                     f"{shlex.quote(str(job.store))} --template array", highlight=False)
+                     f"left; submit again with: sweep submit {shown(shlex.quote(str(job.spec)))} --store "
+                     f"{shown(shlex.quote(str(job.store)))} --template array", highlight=False)
         return
     if result.layout:
         lay = result.layout
@@ -90,14 +91,14 @@ def _report(result: submit_mod.Submission, job: submit_mod.Job, dry_run: bool) -
                       highlight=False)
     for path, text in result.scripts:
         if dry_run:
-            console.rule(str(path))
+            console.rule(shown(path))
             console.print(text, highlight=False, markup=False, soft_wrap=True)
         else:
-            console.print(f"wrote {path}", highlight=False)
+            console.print(f"wrote {shown(path)}", highlight=False)
     if dry_run:
         console.print("dry run: nothing submitted", highlight=False)
         return
     names = ["array job", "finishing job"] if result.layout else ["job"]
     for name, job_id in zip(names, result.job_ids):
-        console.print(f"submitted {name} {job_id}", highlight=False)
-    console.print(f"watch progress with: {watch}", highlight=False)
+        console.print(f"submitted {name} {shown(job_id)}", highlight=False)
+    console.print(f"watch progress with: {shown(watch)}", highlight=False)

@@ -9,7 +9,9 @@ from typing import Annotated
 import typer
 from rich.table import Table
 
-from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors
+from sweep.cli.common import (EXIT_FAILED_TASKS, POINT_FORMS, console, errors, exits_on_errors, expand_points,
+                              parse_points, shown, store_path)
+from sweep.errors import SpecError
 from sweep.trace import trace as trace_replicate
 
 _STATUS = {0: "finished", 1: "stopped at the event cap", 2: "numerical failure"}
@@ -17,26 +19,34 @@ _STATUS = {0: "finished", 1: "stopped at the event cap", 2: "numerical failure"}
 
 @exits_on_errors
 def trace(
-    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run`.")],
-    point: Annotated[int, typer.Option(help="Parameter point index (0-based).")],
-    replicate: Annotated[int, typer.Option(help="Replicate index within the point (0-based).")],
-    output: Annotated[Path | None, typer.Option(help="Write the whole event log to this CSV file.")] = None,
+    store: Annotated[Path, typer.Argument(metavar="STORE", help="A results store written by `sweep run` (or its spec).")],
+    point: Annotated[str, typer.Option("--point", "-p", help=f"Parameter point (0-based), written as everywhere ({POINT_FORMS}); a trace takes one.")],
+    replicate: Annotated[int, typer.Option("--replicate", "-r", help="Replicate index within the point (0-based).")],
+    output: Annotated[Path | None, typer.Option("--output", "-o", help="Write the whole event log to this CSV file.")] = None,
     show: Annotated[int, typer.Option(min=0, help="Events to print.")] = 20,
 ) -> None:
     """Recompute one replicate from its seed, show its event log, and check it against the store."""
-    tr = trace_replicate(store, point, replicate)
+    import sweep
+
+    store = store_path(store)
+    chosen = expand_points(parse_points([point], "--point", "sweep trace"), sweep.status(store).points, "--point",
+                           str(store))
+    if len(chosen) != 1:
+        raise SpecError("sweep trace", "--point", f"names {len(chosen)} points; a trace recomputes one replicate "
+                        "of one point", point, "give one point, e.g. --point 3")
+    tr = trace_replicate(store, chosen[0], replicate)
     params = ", ".join(f"{k}={v:g}" for k, v in tr.params.items()) or "(no varied parameters)"
-    console.print(f"point {tr.point} ({params}), replicate {tr.replicate}: {tr.events:,} events, "
-                  f"{_STATUS.get(tr.status, tr.status)}")
+    console.print(f"point {tr.point} ({shown(params)}), replicate {tr.replicate}: {tr.events:,} events, "
+                  f"{_STATUS.get(tr.status, tr.status)}", highlight=False)
     table = Table(title=f"First {min(show, tr.events)} of {tr.events:,} events", title_justify="left")
     for col in ("#", "time", "reaction", *tr.species):
-        table.add_column(col, justify="right" if col != "reaction" else "left")
+        table.add_column(shown(col), justify="right" if col != "reaction" else "left", overflow="fold")
     for i in range(min(show, tr.events)):
-        table.add_row(str(i + 1), f"{tr.times[i]:.6g}", tr.reactions[tr.fired[i]], *map(str, tr.states[i]))
+        table.add_row(str(i + 1), f"{tr.times[i]:.6g}", shown(tr.reactions[tr.fired[i]]), *map(str, tr.states[i]))
     console.print(table)
     if output is not None:
         _write_csv(output, tr)
-        console.print(f"wrote {tr.events:,} events to {output}")
+        console.print(f"wrote {tr.events:,} events to {shown(output)}", highlight=False, soft_wrap=True)
     if tr.matches_store is None:
         console.print("not compared: this replicate's task is not done in the store yet")
     elif tr.matches_store:
@@ -48,8 +58,16 @@ def trace(
 
 
 def _write_csv(path: Path, tr) -> None:
-    with path.open("w", newline="", encoding="utf-8") as f:
-        out = csv.writer(f)
-        out.writerow(["event", "time", "reaction", *tr.species])
-        for i in range(tr.events):
-            out.writerow([i + 1, repr(float(tr.times[i])), tr.reactions[tr.fired[i]], *tr.states[i].tolist()])
+    import os
+
+    partial = path.with_name(f".{path.name}.partial")
+    try:
+        with partial.open("w", newline="", encoding="utf-8") as f:
+            out = csv.writer(f)
+            out.writerow(["event", "time", "reaction", *tr.species])
+            for i in range(tr.events):
+                out.writerow([i + 1, repr(float(tr.times[i])), tr.reactions[tr.fired[i]], *tr.states[i].tolist()])
+        os.replace(partial, path)
+    except OSError as exc:
+        partial.unlink(missing_ok=True)
+        raise SpecError("sweep trace", "--output", f"cannot write: {exc.strerror or exc}", str(path)) from exc

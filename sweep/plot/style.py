@@ -11,6 +11,8 @@ import xarray as xr
 from sweep.errors import SpecError
 
 SIZE = (8.0, 5.0)
+#: small multiples of more than six panels get a larger figure, so each panel stays readable
+LARGE = (12.0, 7.5)
 #: readable on a slide: nothing below 12 pt
 RC = {
     "font.size": 13, "axes.titlesize": 14, "axes.labelsize": 14, "xtick.labelsize": 12, "ytick.labelsize": 12,
@@ -18,6 +20,12 @@ RC = {
     "svg.hashsalt": "stochsweep",
 }
 MAX_DEFAULT_POINTS = 4
+#: up to this many points share one axes; more become small multiples, one panel per point
+MAX_OVERLAY = 4
+MAX_PANELS = 16
+#: distinct colours, none repeated within a figure: Okabe & Ito (2008), "Color Universal Design",
+#: a palette told apart with the common colour-vision deficiencies (its yellow left out: too pale on white)
+PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
 
 
 @contextlib.contextmanager
@@ -36,8 +44,74 @@ def figure():
     return fig, fig.add_subplot()
 
 
+def panels(n: int, sharey: bool = True):
+    """A Figure of ``n`` small multiples (at most ``MAX_PANELS``), in a near-square grid; unused cells hidden."""
+    from matplotlib.figure import Figure
+
+    cols = int(np.ceil(np.sqrt(n)))
+    rows = int(np.ceil(n / cols))
+    fig = Figure(figsize=SIZE if n <= 6 else LARGE, layout="constrained")
+    grid = fig.subplots(rows, cols, sharex=True, sharey=sharey, squeeze=False)
+    axes = list(grid.ravel())
+    for ax in axes[n:]:
+        ax.set_visible(False)
+    return fig, axes[:n], grid
+
+
+def label_axes(fig, axes, overlaid: bool, xlabel: str, ylabel: str) -> None:
+    """Axis labels: on the one axes, or once for the whole grid of small multiples."""
+    if overlaid:
+        axes[0].set_xlabel(xlabel)
+        axes[0].set_ylabel(ylabel)
+        return
+    fig.supxlabel(xlabel, fontsize=14)
+    fig.supylabel(ylabel, fontsize=14)
+
+
+def colours(n: int) -> list[str]:
+    """``n`` distinct colours (``n`` <= len(PALETTE): more series than that become small multiples)."""
+    if n > len(PALETTE):
+        raise ValueError(f"{n} series in one axes: at most {len(PALETTE)} distinct colours")
+    return list(PALETTE[:n])
+
+
+def legend_outside(fig, ax=None, columns: int = 1) -> None:
+    """The legend under the axes, outside the data (constrained layout makes room for it)."""
+    source = ax if ax is not None else fig.axes[0]
+    handles, labels = source.get_legend_handles_labels()
+    if max(map(len, labels), default=0) > 32:
+        columns = 1  # two columns of long labels would run off the figure
+    if handles:
+        fig.legend(handles, labels, loc="outside lower center", ncols=columns, frameon=False)
+
+
+def title(fig, *lines: str, width: int = 72) -> None:
+    """The figure's title, each line wrapped to ``width`` characters so none runs off the figure."""
+    import textwrap
+
+    fig.suptitle("\n".join(textwrap.fill(line, width) for line in lines if line), fontsize=14)
+
+
+def check_points(ds: xr.Dataset, chosen: list[int], src: str = "sweep plot") -> None:
+    """Refuse more points than small multiples can show."""
+    if len(chosen) > MAX_PANELS:
+        raise SpecError(src, "--point", f"{len(chosen)} points: a figure shows at most {MAX_PANELS}",
+                        fix=f"name up to {MAX_PANELS} points, e.g. --point 0:{MAX_PANELS - 1}")
+
+
+def time_unit(ds: xr.Dataset, given: str | None = None) -> str | None:
+    """The time unit for labels: ``given`` (Python callers with an old store), else the store's."""
+    unit = given or ds.attrs.get("time_unit")
+    return str(unit) if unit else None
+
+
 def time_label(unit: str | None) -> str:
     return f"time ({unit})" if unit else "time"
+
+
+def at_time(t: float, unit: str | None) -> str:
+    """'t = 600 min'."""
+    return f"t = {t:g}" + (f" {unit}" if unit else "")
 
 
 def count_label(species: str) -> str:
@@ -52,14 +126,19 @@ def point_label(ds: xr.Dataset, point: int) -> str:
     return f"point {point}: {text}" if text else f"point {point}"
 
 
-def choose_points(ds: xr.Dataset, points: Sequence[int] | None, src: str = "sweep plot") -> list[int]:
-    """The given points (checked), or up to four spread evenly over the design."""
+def choose_points(ds: xr.Dataset, points: Sequence | None, src: str = "sweep plot") -> list[int]:
+    """The given points and inclusive ``(first, last)`` ranges (checked), or up to four spread evenly."""
     n = ds.sizes["point"]
     if points:
+        chosen: list[int] = []
         for p in points:
-            if not 0 <= p < n:
+            first, last = p if isinstance(p, tuple) else (p, p)
+            if not 0 <= int(first) <= int(last) < n:
                 raise SpecError(src, "--point", f"must be within 0..{n - 1}", p)
-        return list(dict.fromkeys(int(p) for p in points))
+            chosen.extend(range(int(first), int(last) + 1))
+        chosen = list(dict.fromkeys(chosen))
+        check_points(ds, chosen, src)
+        return chosen
     return sorted({int(round(v)) for v in np.linspace(0, n - 1, min(MAX_DEFAULT_POINTS, n))})
 
 
@@ -71,10 +150,13 @@ def finished(ds: xr.Dataset, point: int, species: str, time_index: int | slice =
 
 
 def species_of(ds: xr.Dataset, species: str | None, src: str = "sweep plot") -> str:
-    """``species`` checked against the store; the last species if None (often the reporter)."""
+    """``species`` checked against the store; if None, the species the store names as its default
+    (``attrs["default_species"]``, for a spec key that names it), else the first species of the
+    model: a rule a user can predict (put the species you plot most first, or name it)."""
     names = [str(s) for s in ds["species"].values]
     if species is None:
-        return names[-1]
+        named = ds.attrs.get("default_species")
+        return str(named) if named in names else names[0]
     if species not in names:
         raise SpecError(src, "--species", "not a species of this store", species, f"choose from: {', '.join(names)}")
     return species

@@ -94,7 +94,7 @@ class TestCle(KernelConformance):
 
     def test_immigration_death_high_copy_is_poisson(self):
         """0 -> A (k = 100), A -> 0 (g = 0.1) from the mean, A = 1000: stationary A is
-        Poisson(k/g), mean = variance = 1000 (Gardiner, Handbook of Stochastic Methods; the CLE
+        Poisson(k/g), mean = variance = 1000 (Gardiner, Handbook of Stochastic Methods, 3rd ed., Springer 2004; the CLE
         of a linear network has these exact first two moments). At t = 60 (6 relaxation times)
         over 10 000 replicates, the mean is within 4 SE of 1000 (Euler–Maruyama keeps the mean
         of a linear drift exact) and the variance within 4 SE of 1000 plus the scheme's

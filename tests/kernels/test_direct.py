@@ -66,7 +66,7 @@ class TestDirect(KernelConformance):
     def test_immigration_death_is_poisson(self, kernel, t):
         """0 -> A (k), A -> 0 (g) from A = 0: A(t) ~ Poisson((k/g)(1 - exp(-g t))).
 
-        Gardiner, Handbook of Stochastic Methods (1985), birth-death master equation;
+        Gardiner, Handbook of Stochastic Methods, 3rd ed., Springer 2004, birth-death master equation;
         Jahnke & Huisinga (2007), J. Math. Biol. 54:1-26, "Solving the chemical master
         equation for monomolecular reaction systems analytically" (Poisson from a zero
         start). t = 1 is transient (mean 3.93), t = 30 stationary (mean 10).

@@ -51,7 +51,8 @@ class TestOde(KernelConformance):
 
     def test_absorbing_state_holds(self, kernel):
         """A -> 0 (c = 1) from A = 3, C = 7 inert: A(t) = 3 exp(-t) (first-order decay, e.g.
-        Atkins & de Paula, Physical Chemistry), C stays 7. Replaces the base test, whose
+        Atkins & de Paula, Physical Chemistry, 8th ed., Oxford University Press 2006; edition
+        from memory), C stays 7. Replaces the base test, whose
         integer event counts do not apply."""
         case = build({"A": 3, "C": 7}, {"decay": ("A -> 0", 1.0)})
         times = np.linspace(0.0, 50.0, 101)
@@ -74,7 +75,8 @@ class TestOde(KernelConformance):
     @pytest.mark.parametrize("ode_method", ["LSODA", "BDF"])
     def test_isomerisation_closed_form(self, ode_method):
         """A <-> B (k1, k2) from A0: A(t) = A0 (k2 + k1 exp(-(k1 + k2) t)) / (k1 + k2), B = A0 - A.
-        Reversible first-order kinetics (Atkins & de Paula, Physical Chemistry). rtol 1e-6."""
+        Reversible first-order kinetics (Atkins & de Paula, Physical Chemistry, 8th ed., Oxford University Press 2006; edition
+        from memory). rtol 1e-6."""
         a0, k1, k2 = 1000, 1.0, 2.0
         case = build({"A": a0, "B": 0}, {"fwd": ("A -> B", k1), "back": ("B -> A", k2)})
         times = np.linspace(0.0, 5.0, 51)
@@ -124,7 +126,8 @@ class TestOde(KernelConformance):
     def test_second_and_third_order_closed_forms(self):
         """A + B -> C (c) from A0 = 30, B0 = 20: A(t) = D A0 / (A0 - B0 exp(-c D t)), D = A0 - B0;
         3A -> B (c) with rate c A^3/6, so dA/dt = -c A^3/2: A(t) = A0 / sqrt(1 + c A0^2 t).
-        Integrated second- and third-order rate laws (Atkins & de Paula, Physical Chemistry).
+        Integrated second- and third-order rate laws (Atkins & de Paula, Physical Chemistry, 8th ed., Oxford University Press 2006; edition
+        from memory).
         rtol 1e-6."""
         times = np.linspace(0.0, 2.0, 21)
         c = 0.05

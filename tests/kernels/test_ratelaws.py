@@ -2,7 +2,8 @@
 
 Exact references: the stationary distribution of a one-species birth–death chain with any birth
 rate lambda(n) and death rate mu(n), pi(n) proportional to prod_{i<n} lambda(i)/mu(i+1) (detailed
-balance; Gardiner 1985, Handbook of Stochastic Methods, ch. 7), and finite state projections of
+balance; Gardiner 2004, Handbook of Stochastic Methods, 3rd ed., Springer, the master equation
+chapter, ch. 7 from memory), and finite state projections of
 the master equation (Munsky & Khammash 2006) built here from the same formulas written in plain
 Python. Goodness of fit: chi-square at ALPHA = 0.001 with fixed seeds.
 """
@@ -53,7 +54,7 @@ def _hill_down(x):
 
 
 def _birth_death_stationary(birth, death, n_max):
-    """pi(n) ~ prod_{i<n} birth(i) / death(i+1) (detailed balance, Gardiner 1985)."""
+    """pi(n) ~ prod_{i<n} birth(i) / death(i+1) (detailed balance, Gardiner 2004, 3rd ed.)."""
     log_w = np.zeros(n_max)
     for n in range(1, n_max):
         log_w[n] = log_w[n - 1] + np.log(birth(n - 1)) - np.log(death(n))

@@ -3,7 +3,7 @@ precise enough, on real local Dask clusters, real stores and real killed process
 
 Sources, named beside the checks:
 - Immigration-death from zero molecules: the count at time t is Poisson with mean
-  lambda = k / g (1 - exp(-g t)) (common practice; e.g. Gardiner 1985). The standard error of the
+  lambda = k / g (1 - exp(-g t)) (common practice; e.g. Gardiner 2004, Handbook of Stochastic Methods, 3rd ed., Springer). The standard error of the
   mean of n Poisson(lambda) replicates is sqrt(lambda / n) (common practice), so a relative
   precision eps needs n = 1 / (eps^2 lambda) replicates.
 - A Poisson count's Fano factor is 1 with standard error sqrt(2 / n) (the index-of-dispersion

@@ -198,7 +198,7 @@ def test_fano_factor_of_two_stage_expression(single_point):
 
 def test_first_passage_of_pure_death(single_point):
     """A pure death process from N = 20 at rate g per molecule goes extinct at T = sum of independent
-    exponential waits, E[T] = sum_{i=1}^{N} 1 / (g i) (common practice; e.g. Gardiner 1985).
+    exponential waits, E[T] = sum_{i=1}^{N} 1 / (g i) (common practice; e.g. Gardiner 2004, Handbook of Stochastic Methods, 3rd ed., Springer).
     On the sample grid T <= T_grid < T + step, so E[T] lies in (E[T_grid] - step, E[T_grid]];
     checked with 3.29 standard errors of the mean (alpha = 0.001)."""
     store, result = single_point

@@ -32,7 +32,7 @@ def _body(method, replicates="replicates = 40", options=""):
 
 @pytest.mark.parametrize("method", sorted(set(kernels.METHODS) - kernels.DETERMINISTIC))
 def test_stochastic_methods_fill_the_store(method, spec_file, tmp_path):
-    """Immigration-death at stationarity has mean k/g (Gardiner 1985); every method must land
+    """Immigration-death at stationarity has mean k/g (Gardiner 2004, Handbook of Stochastic Methods, 3rd ed., Springer); every method must land
     within 5 standard errors of it at both points (a loose check: the kernels' own tests are
     the precise ones)."""
     spec = sweep.load(spec_file(_body(method)), store=tmp_path / f"{method}.zarr")

@@ -7,7 +7,7 @@ Sources, named beside the checks:
 - Campolongo, Cariboni & Saltelli (2007): mu* (mean absolute effect) screens out inputs with no
   effect (mu* = 0).
 - Immigration-death from zero molecules: the count at time t is Poisson with mean
-  k / g (1 - exp(-g t)) (common practice; e.g. Gardiner 1985), so a sample mean of n replicates
+  k / g (1 - exp(-g t)) (common practice; e.g. Gardiner 2004, Handbook of Stochastic Methods, 3rd ed., Springer), so a sample mean of n replicates
   has variance mean / n.
 """
 

@@ -54,7 +54,7 @@ def test_ensemble(store):
     fig = plot.ensemble(store, "A", points=[0, 5], samples=2, time_unit="min")
     ax = fig.axes[0]
     assert ax.get_xlabel() == "time (min)" and ax.get_ylabel() == "A (molecules)"
-    assert [t.get_text() for t in ax.get_legend().get_texts()] == [
+    assert [t.get_text() for t in fig.legends[0].get_texts()] == [
         "point 0: k=2, g=0.5 (60 replicates)", "point 5: k=8, g=2 (60 replicates)"]
     assert len(ax.lines) == 2 * (2 + 1)  # per point: two sample trajectories and the mean
     _readable(fig)
@@ -83,7 +83,7 @@ def test_sensitivity_bars_with_intervals(store):
     ax = fig.axes[0]
     assert [t.get_text() for t in ax.get_xticklabels()] == ["k", "g"]
     assert ax.get_xlabel() == "parameter" and ax.get_ylabel().startswith("PRCC")
-    assert "mean of A at t = 10" in ax.get_title()
+    assert "mean of A at t = 10" in fig.get_suptitle()
     heights = [bar.get_height() for bar in ax.patches]
     assert heights[0] > 0 > heights[1]  # more immigration, more A; faster death, fewer
     _readable(fig)
@@ -118,7 +118,9 @@ def test_bad_requests(store, tmp_path):
                           (["ensemble", "-o", str(tmp_path / "a.gif")], "unsupported image format")):
         result = runner.invoke(app, ["plot", str(store), *args])
         assert result.exit_code == 2 and message in result.output, (args, result.output)
-    with pytest.raises(SpecError, match="not a statistic"):
+    with pytest.raises(SpecError, match="needs a threshold"):
         plot.heatmap(store, "passage_mean")
+    with pytest.raises(SpecError, match="not a statistic"):
+        plot.heatmap(store, "median")
     with pytest.raises(StoreError, match="sweep analyze"):
         plot.sensitivity(tmp_path / "none.zarr")
