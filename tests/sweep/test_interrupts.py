@@ -9,6 +9,7 @@ traceback, no process of the run left behind, and a rerun gives the bytes of an 
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
@@ -101,9 +102,13 @@ class _Run:
             assert time.monotonic() < deadline, f"no {what} within {timeout} s"
             time.sleep(0.005)
 
-    def ctrl_c(self) -> int:
-        """SIGINT to the whole process group; the exit status, which must come within EXIT_SECONDS."""
+    def ctrl_c(self, again_after: float | None = None) -> int:
+        """SIGINT to the whole process group (twice, with ``again_after``); the exit status, within EXIT_SECONDS."""
         os.killpg(self.proc.pid, signal.SIGINT)
+        if again_after is not None:
+            time.sleep(again_after)
+            with contextlib.suppress(ProcessLookupError):  # it may have ended already
+                os.killpg(self.proc.pid, signal.SIGINT)
         try:
             status = self.proc.wait(timeout=EXIT_SECONDS)
         except subprocess.TimeoutExpired:
@@ -225,25 +230,29 @@ def test_ctrl_c_while_the_cluster_starts_and_mid_run(reference, tmp_path, start)
     """Each moment on the same store, as a user would try again and again; then one rerun."""
     spec, expected = reference
     store = tmp_path / "start.zarr"
+    starting, stopping = [NOTHING_LOST], ["interrupted"]  # the second: Ctrl-C again while it stops
     moments = [
         # multiprocessing's resource tracker: the local backend starts it first thing
-        ("the resource tracker", lambda run: run.processes("resource_tracker"), True),
+        ("the resource tracker", lambda run: run.processes("resource_tracker"), None, [starting]),
         # a worker process importing distributed, numpy, ...: the start waits for it
-        ("a worker process", lambda run: run.processes("spawn_main"), True),
+        ("a worker process", lambda run: run.processes("spawn_main"), None, [starting]),
+        ("a worker process, twice", lambda run: run.processes("spawn_main"), 0.1, [starting, stopping]),
         # the workers are up; the client is connecting and the workers are loading the kernel,
         # unless this machine was slow to notice (then the run was just past its start)
-        ("both workers listening", lambda run: run.listening_workers() >= 2, False),
+        ("both workers listening", lambda run: run.listening_workers() >= 2, None, [starting, []]),
     ]
-    for moment, happened, surely_starting in moments:
+    for moment, happened, again_after, outcomes in moments:
         run = start(spec, store)
         run.wait_for(moment, lambda: happened(run))
-        assert run.ctrl_c() == 130, (moment, run.out, run.err)
+        assert run.ctrl_c(again_after) == 130, (moment, run.out, run.err)
         assert not any("Traceback" in line for line in run.err), (moment, run.err)
-        starting = run.messages() == [NOTHING_LOST]
-        assert starting or (surely_starting is False and run.stopped_mid_run()), (moment, run.out, run.err)
-        if starting:
+        assert run.messages() in outcomes, (moment, run.out, run.err)
+        if run.messages() == []:
+            assert run.stopped_mid_run(), (moment, run.out, run.err)
+        else:
             assert _done(store) == 0, moment  # no task had started
-        assert run.last_line().startswith("resume with: "), (moment, run.out)
+        if run.messages() != stopping:
+            assert run.last_line().startswith("resume with: "), (moment, run.out)
         run.assert_nothing_left()
 
     run = start(spec, store)
