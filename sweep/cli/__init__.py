@@ -90,6 +90,8 @@ def _commands() -> typer.Typer:
             finally:
                 if interrupts is not None:
                     signal.signal(signal.SIGINT, _end_while_exiting)
+                    if interrupts.seen:  # again: leaving a ``warnings.catch_warnings()`` undid the filters
+                        _quiet_abandoned_work()
 
     app = typer.Typer(
         cls=Commands,
