@@ -21,7 +21,6 @@ from __future__ import annotations
 import contextlib
 import errno
 import importlib
-import signal
 import time
 import traceback
 from dataclasses import dataclass, field
@@ -287,9 +286,9 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
             kind = "slurm" if cluster is not None else "scheduler" if scheduler else "local"
             backend = importlib.import_module(BACKENDS[kind])
             with contextlib.ExitStack() as stack:
-                with _sigint_ignored():
-                    client = stack.enter_context(backend.connect(address=scheduler, workers=workers, cluster=cluster,
-                                                                 store=spec.store))
+                # Ctrl-C works here too; the local backend keeps it from its worker processes
+                client = stack.enter_context(backend.connect(address=scheduler, workers=workers, cluster=cluster,
+                                                             store=spec.store))
                 n_workers = len(client.scheduler_info(n_workers=-1)["workers"])
                 # Slurm jobs start after this: size the window for the workers the cluster may grow to
                 slots = max(n_workers, cluster.max_jobs * cluster.workers_per_job if cluster is not None else 0)
@@ -317,25 +316,6 @@ def run(spec: Spec, *, workers: int | None = None, scheduler: str | None = None,
                           simulating, tuple(tally.failed), tally.stopped, repaired=prepared.repaired)
     finally:
         lock.release(spec.store, holder)
-
-
-@contextlib.contextmanager
-def _sigint_ignored():
-    """Start worker processes with SIGINT ignored, so Ctrl-C reaches only this client.
-
-    A terminal sends SIGINT to the whole foreground process group; the client then stops
-    the workers itself. An ignored signal stays ignored across exec, and Python keeps an
-    inherited "ignore" instead of installing its KeyboardInterrupt handler.
-    """
-    try:
-        previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
-    except ValueError:  # not the main thread: nothing to shield
-        yield
-        return
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
 
 
 def _chain(first, rest):

@@ -4,6 +4,13 @@ A scheduler file is the JSON a scheduler writes with ``dask scheduler --schedule
 (its address among other things); ``slurm_templates/allocation.sbatch`` starts one that way
 inside a Slurm allocation, so the address is known only once the scheduler runs. With a
 file, this waits for it to appear and for a first worker to connect.
+
+Security is what the user configured for Dask, no more and no less: ``Client`` takes its TLS
+credentials from dask config (``distributed.comm.tls.ca-file``, ``.client.cert``,
+``.client.key``, ``distributed.comm.require-encryption``; as environment variables
+``DASK_DISTRIBUTED__COMM__TLS__CA_FILE`` and so on) or from ``distributed.client.security-loader``.
+With a ``tcp://`` address there is none: whoever can reach the scheduler's port can run code
+on its workers as the user they run as.
 """
 
 from __future__ import annotations
@@ -29,13 +36,23 @@ def is_file(address: str) -> bool:
 @contextmanager
 def connect(address: str, **_: object) -> Iterator[Client]:
     if not is_file(address):
-        with Client(address) as client:
+        with _client(address, address=address) as client:
             yield client
         return
     _wait_for(Path(address))
-    with Client(scheduler_file=address) as client:
+    with _client(address, scheduler_file=address) as client:
         client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)
         yield client
+
+
+def _client(where: str, **how: str) -> Client:
+    try:
+        return Client(**how)
+    except (OSError, TypeError) as exc:  # TypeError: a tls:// address with no TLS settings
+        hint = ("for a tls:// scheduler, give this client its certificate in dask config, e.g. "
+                "DASK_DISTRIBUTED__COMM__TLS__CA_FILE, DASK_DISTRIBUTED__COMM__TLS__CLIENT__CERT and "
+                "DASK_DISTRIBUTED__COMM__TLS__CLIENT__KEY")
+        raise SweepError(f"{where}: cannot connect to the Dask scheduler: {exc}\n{hint}") from exc
 
 
 def _wait_for(path: Path) -> None:
