@@ -32,12 +32,13 @@ _EXPORTS: dict[str, tuple[str, str]] = {
     "SweepError": ("sweep.errors", "SweepError"),
     "ExportSummary": ("sweep.export", "ExportSummary"),
     "export": ("sweep.export", "export"),
-    "Progress": ("sweep.runner", "Progress"),
-    "RunSummary": ("sweep.runner", "RunSummary"),
-    "Started": ("sweep.runner", "Started"),
-    "run": ("sweep.runner", "run"),
-    "ShardSummary": ("sweep.shard", "ShardSummary"),
-    "run_shard": ("sweep.shard", "run_shard"),
+    "Execution": ("sweep.execute.execution", "Execution"),
+    "Progress": ("sweep.execute.loop", "Progress"),
+    "RunSummary": ("sweep.execute.run", "RunSummary"),
+    "Started": ("sweep.execute.run", "Started"),
+    "run": ("sweep.execute.run", "run"),
+    "ShardSummary": ("sweep.execute.run", "ShardSummary"),
+    "run_shard": ("sweep.execute.run", "run_shard"),
     "Spec": ("sweep.spec", "Spec"),
     "load": ("sweep.spec", "load"),
     "open_results": ("sweep.store", "open_dataset"),
@@ -52,7 +53,7 @@ __all__ = [
     "AnalysisOptions", "AnalysisResult", "ExportSummary", "Threshold", "analyze", "export", "open_analysis",
     "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
     "ReplicateTrace", "StoreStatus", "SweepError", "load", "open_results", "run", "status", "trace", "verify",
-    "ShardSummary", "run_shard",
+    "ShardSummary", "run_shard", "Execution",
 ]
 
 if TYPE_CHECKING:  # what type checkers and IDEs see; at run time these come from __getattr__
@@ -60,8 +61,9 @@ if TYPE_CHECKING:  # what type checkers and IDEs see; at run time these come fro
     from sweep.analysis.report import AnalysisResult, analyze, open_analysis
     from sweep.errors import KernelError, SpecError, StoreError, SweepError
     from sweep.export import ExportSummary, export
-    from sweep.runner import Progress, RunSummary, Started, run
-    from sweep.shard import ShardSummary, run_shard
+    from sweep.execute.execution import Execution
+    from sweep.execute.loop import Progress
+    from sweep.execute.run import RunSummary, ShardSummary, Started, run, run_shard
     from sweep.spec import Spec, load
     from sweep.status import StoreStatus, status, verify
     from sweep.store import open_dataset as open_results

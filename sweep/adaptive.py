@@ -47,7 +47,6 @@ from sweep.errors import SpecError
 from sweep.tasks import Task, n_blocks
 
 if TYPE_CHECKING:
-    from sweep.runner import RunSummary
     from sweep.spec import Spec
 
 #: the replicates a standard error predicts are raised by this factor, so that a point whose
@@ -212,7 +211,8 @@ class Outcome:
 
 
 class Planner:
-    """The rounds: ``planner(done, failed)`` gives the tasks to run next (``runner.run``'s ``schedule``).
+    """The rounds: ``planner(done, failed)`` gives the tasks to run next (the schedule of
+    ``sweep.execute.loop.drive``).
 
     It replays every point's decisions from the store's data as far as the ``done`` record
     allows, so a fresh planner on a half-finished store picks up exactly where the rounds were.
@@ -242,6 +242,15 @@ class Planner:
                  for b in range(int(self.blocks[p])) if not done[p, b]]
         self._record(done, tasks)
         return tasks
+
+    def finish(self, path) -> Outcome:
+        """The rounds' outcome once the run has ended: each point's state, and the tasks still wanted."""
+        from sweep import store
+
+        done = store.read_done(path)
+        pending = sum(1 for p, s in enumerate(self.state) if s in (ADDING, FAILED)
+                      for b in range(int(self.blocks[p])) if not done[p, b])
+        return self.outcome(done, pending)
 
     def outcome(self, done: np.ndarray, pending: int = 0) -> Outcome:
         """Each point's state and replicates now; ``pending`` tasks asked for and not yet done."""
@@ -336,29 +345,6 @@ def _statistic(x: np.ndarray, statistic: str) -> tuple[np.ndarray, np.ndarray]:
     moments = stats.moments(xr.DataArray(np.ascontiguousarray(x), dims=("point", "replicate")))
     errors = adequacy.standard_errors(moments)
     return moments[statistic].values, errors[f"se_{statistic}"].values
-
-
-def run(spec: Spec, **options: Any) -> RunSummary:
-    """Run (or resume) a sweep with ``[run.adaptive]``: rounds of ``runner.run`` until every point is decided.
-
-    Takes ``runner.run``'s keyword options; returns its summary with ``adaptive`` set to the
-    ``Outcome`` (points that met the target, reached ``max_replicates``, ...).
-
-    Raises
-    ------
-    StoreError
-        As ``runner.run``.
-    """
-    import dataclasses
-
-    from sweep import runner, store
-
-    planner = Planner(spec)
-    summary = runner.run(spec, schedule=planner, **options)
-    done = store.read_done(spec.store)
-    pending = sum(1 for p, s in enumerate(planner.state) if s in (ADDING, FAILED)
-                  for b in range(int(planner.blocks[p])) if not done[p, b])
-    return dataclasses.replace(summary, adaptive=planner.outcome(done, pending))
 
 
 def describe_states(counts: Mapping[str, int], most: int) -> list[str]:

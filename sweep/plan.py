@@ -296,6 +296,8 @@ def _trial_chunk(bench: _Bench, spec: Spec, points, costs, blocks, budget: float
         n = int(min(want, max(1, budget / max(median.seconds_per_replicate, 1e-6))))
         result, _ = bench.run(median.point, spec.values_at(points[median.point]), n, spec.max_events)
         block = _join([block, result])
+    # a task's chunk holds at most replicates_per_task: calibration may have run more replicates
+    block = KernelResult(*(part[:min(spec.replicates_per_task, spec.replicates)] for part in block))
     stored, seconds = write_trial(block, spec, points, _scratch_parent(spec.store))
     return stored, block.counts.shape[0], seconds
 
@@ -328,10 +330,11 @@ def write_trial(block: KernelResult, spec: Spec, points: np.ndarray, folder: Pat
     with tempfile.TemporaryDirectory(prefix=".sweep-plan-", dir=folder) as scratch:
         path = Path(scratch) / "trial.zarr"
         store.create(path, spec, points[:repeats], n_blocks(spec.replicates, spec.replicates_per_task))
+        ident = store.store_id(store.attributes(path))
         seconds = []
         for p in range(repeats):
             began = time.perf_counter()
-            store.write_block(path, p, 0, n, block)
+            store.write_block(path, p, 0, n, block, ident)
             seconds.append(time.perf_counter() - began)
         stored = sum(f.stat().st_size for f in (path / "counts").rglob("*") if f.is_file() and f.name != "zarr.json")
     return stored // repeats, float(np.median(seconds))

@@ -298,7 +298,7 @@ def pending_record(spec) -> np.ndarray:
         The store holds another spec's sweep (the shards would refuse it anyway).
     """
     from sweep import store as store_mod
-    from sweep.runner import check_same_sweep
+    from sweep.session import check_same_sweep
     from sweep.tasks import n_blocks
 
     if store_mod.exists(spec.store):
@@ -350,7 +350,7 @@ def submit_array(spec, job: Job, profile: ClusterConfig, *, max_array: int = DEF
     SpecError
         An adaptive spec (shards run a fixed task list).
     """
-    from sweep.shard import refuse_adaptive
+    from sweep.session import refuse_adaptive
 
     refuse_adaptive(spec)
     done = pending_record(spec)

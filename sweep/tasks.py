@@ -6,6 +6,7 @@ numbers do not depend on block size, worker count, order of execution or resumes
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -35,3 +36,36 @@ def make_tasks(n_points: int, replicates: int, per_task: int) -> list[Task]:
 def replicate_seeds(root: int, point: int, start: int, stop: int) -> list[np.random.SeedSequence]:
     """One independent seed per replicate of ``point`` in ``start:stop``."""
     return [np.random.SeedSequence(root, spawn_key=(point, r)) for r in range(start, stop)]
+
+
+class Packer:
+    """How many blocks go into one task: enough that a task is worth ``target`` seconds of kernel time.
+
+    Starts at one block a task, learns the kernel seconds per block from finished tasks, and
+    packs accordingly, never more than ``most`` blocks (a bound on a task's memory). A block's
+    bytes do not depend on its task, so packing changes how fast a sweep runs, never what it
+    writes. ``fixed`` packs a set number instead (tests compare packings with it).
+    """
+
+    def __init__(self, target: float, most: int, fixed: int | None = None):
+        self.target, self.most, self.fixed = target, max(1, most), fixed
+        self._seconds = 0.0
+        self._blocks = 0
+
+    def size(self) -> int:
+        if self.fixed is not None:
+            return max(1, self.fixed)
+        if not self._blocks or self._seconds <= 0.0:
+            return 1
+        per_block = self._seconds / self._blocks
+        wanted = math.ceil(round(self.target / per_block, 9))  # round: 0.2 / 0.002 must give 100, not 101
+        return int(min(self.most, max(1, wanted)))
+
+    def learn(self, kernel_seconds: float, blocks: int) -> None:
+        self._seconds += kernel_seconds
+        self._blocks += blocks
+
+
+def chunk_bytes(replicates_per_task: int, samples: int, species: int, itemsize: int = 8) -> int:
+    """Bytes one block's samples take in memory (the bound ``Packer.most`` is computed from)."""
+    return replicates_per_task * samples * species * itemsize

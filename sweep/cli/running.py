@@ -18,6 +18,7 @@ from sweep.cli.common import (EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, durati
                               shown, si)
 
 EXIT_INTERRUPTED = 130  # the shell's convention for a run stopped by SIGINT
+EXIT_TERMINATED = 143  # 128 + SIGTERM
 
 
 @exits_on_errors
@@ -98,7 +99,8 @@ def run(
     _check_results(summary, spec)
     if summary.stopped or summary.failed:
         console.print(f"resume with: {shown(resume)}", highlight=False, soft_wrap=True)
-        raise typer.Exit(EXIT_INTERRUPTED if summary.stopped == "interrupted" else EXIT_FAILED_TASKS)
+        raise typer.Exit({"interrupted": EXIT_INTERRUPTED, "terminated": EXIT_TERMINATED}.get(summary.stopped or "",
+                                                                                EXIT_FAILED_TASKS))
 
 
 def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:

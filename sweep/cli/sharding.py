@@ -13,8 +13,8 @@ from pathlib import Path
 import typer
 
 import sweep
-from sweep import shard as shard_mod
 from sweep import walltime
+from sweep.execute.execution import parse_shard
 from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, shown, si
 
 EXIT_WALLTIME = walltime.EXIT_WALLTIME
@@ -32,7 +32,7 @@ def run_shard(spec_path: Path, store: Path | None, shard: str | None, time_left:
     if given:
         _bad(f"--shard runs in this process without Dask; drop {', '.join(given)}")
     try:
-        index, count = shard_mod.parse(shard)
+        index, count = parse_shard(shard)
     except ValueError as exc:
         _bad(f"--shard {exc}")
     try:
@@ -42,8 +42,7 @@ def run_shard(spec_path: Path, store: Path | None, shard: str | None, time_left:
     spec = sweep.load(spec_path, store=store)
     limit = "no time limit" if left is None else f"{duration(left)} left"
     console.print(f"shard {index}/{count} of {shown(spec.store)} ({limit})", highlight=False)
-    summary = shard_mod.run_shard(spec, index, count, time_left=left, break_lock=break_lock,
-                                  on_progress=_logger())
+    summary = sweep.run_shard(spec, index, count, time_left=left, break_lock=break_lock, on_progress=_logger())
     _report(summary)
     raise typer.Exit(_exit_code(summary))
 
@@ -65,7 +64,7 @@ def _logger():
     return log
 
 
-def _report(s: shard_mod.ShardSummary) -> None:
+def _report(s: sweep.RunSummary) -> None:
     console.print(f"shard {s.index}/{s.count}: {s.tasks_run} tasks run, {s.tasks_skipped} already done, "
                   f"{len(s.failed)} failed, {s.tasks_left} left, of {s.tasks_in_shard} in this shard "
                   f"({s.tasks_total} in the sweep); {s.events:,} events in {duration(s.seconds)}", highlight=False)
@@ -80,7 +79,7 @@ def _report(s: shard_mod.ShardSummary) -> None:
                       "finish this shard", highlight=False)
 
 
-def _exit_code(s: shard_mod.ShardSummary) -> int:
+def _exit_code(s: sweep.RunSummary) -> int:
     if s.stopped == "walltime":
         return EXIT_WALLTIME
     if s.stopped == "interrupted":

@@ -1,4 +1,5 @@
-"""Execution backends. Each is a context manager ``connect(...)`` yielding a Dask client."""
+"""Execution backends: each is one module with ``pool(execution, store)``, a context manager
+yielding a ``sweep.execute.pool.Pool`` for the run loop (``sweep.execute.loop``)."""
 
 from __future__ import annotations
 
@@ -6,4 +7,5 @@ BACKENDS = {
     "local": "sweep.execute.local",
     "scheduler": "sweep.execute.scheduler",
     "slurm": "sweep.execute.slurm",
+    "shard": "sweep.execute.inprocess",
 }

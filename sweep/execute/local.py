@@ -36,17 +36,31 @@ import threading
 import time
 from contextlib import contextmanager, suppress
 from multiprocessing import resource_tracker
-from typing import Callable, Iterator
+from typing import TYPE_CHECKING, Callable, Iterator
 
 from distributed import Client, LocalCluster
 from distributed.security import Security
+
+from sweep.execute.pool import DaskPool
+
+if TYPE_CHECKING:
+    from pathlib import Path
+
+    from sweep.execute.execution import Execution
 
 POLL_SECONDS = 0.1  # how often the main thread looks up from waiting (it wakes at once for its own signals)
 ABANDON_SECONDS = 30.0  # after Ctrl-C, how long to wait for the start to give up (its processes are gone by then)
 
 
 @contextmanager
-def connect(workers: int | None = None, **_: object) -> Iterator[Client]:
+def pool(execution: Execution, store: Path) -> Iterator[DaskPool]:
+    """The run loop's pool: a local cluster of ``execution.workers`` processes (default: one per core)."""
+    with connect(execution.workers) as client:
+        yield DaskPool(client, slots=len(client.scheduler_info(n_workers=-1)["workers"]))
+
+
+@contextmanager
+def connect(workers: int | None = None) -> Iterator[Client]:
     """Start the cluster, yield a client, and close both on the way out (Ctrl-C included).
 
     Raises

@@ -18,11 +18,15 @@ from __future__ import annotations
 import time
 from contextlib import contextmanager
 from pathlib import Path
-from typing import Iterator
+from typing import TYPE_CHECKING, Iterator
 
 from distributed import Client
 
 from sweep.errors import SweepError
+from sweep.execute.pool import DaskPool
+
+if TYPE_CHECKING:
+    from sweep.execute.execution import Execution
 
 FILE_WAIT_SECONDS = 300.0  # a scheduler started in the same job writes its file within seconds
 WORKER_WAIT_SECONDS = 600.0  # workers started with srun may queue behind the job's own setup
@@ -34,7 +38,14 @@ def is_file(address: str) -> bool:
 
 
 @contextmanager
-def connect(address: str, **_: object) -> Iterator[Client]:
+def pool(execution: Execution, store: Path) -> Iterator[DaskPool]:
+    """The run loop's pool: the workers of the scheduler at ``execution.address``."""
+    with connect(execution.address) as client:
+        yield DaskPool(client, slots=len(client.scheduler_info(n_workers=-1)["workers"]))
+
+
+@contextmanager
+def connect(address: str) -> Iterator[Client]:
     if not is_file(address):
         with _client(address, address=address) as client:
             yield client

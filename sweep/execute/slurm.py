@@ -33,7 +33,7 @@ import signal
 import threading
 from contextlib import contextmanager, suppress
 from pathlib import Path
-from typing import Iterator
+from typing import TYPE_CHECKING, Iterator
 
 import dask
 from distributed import Client
@@ -43,6 +43,10 @@ from distributed.security import Security
 
 from sweep.cluster import ClusterConfig, for_store
 from sweep.errors import SweepError
+from sweep.execute.pool import DaskPool
+
+if TYPE_CHECKING:
+    from sweep.execute.execution import Execution
 
 
 def _import_jobqueue():
@@ -272,7 +276,15 @@ def make_cluster(config: ClusterConfig, log_dir: Path, security: Security | None
 
 
 @contextmanager
-def connect(cluster: ClusterConfig, store: Path, **_: object) -> Iterator[Client]:
+def pool(execution: Execution, store: Path) -> Iterator[DaskPool]:
+    """The run loop's pool: workers in Slurm jobs, sized for as many as the cluster may grow to."""
+    config = execution.cluster
+    with connect(config, store) as client:
+        yield DaskPool(client, slots=config.max_jobs * config.workers_per_job)
+
+
+@contextmanager
+def connect(cluster: ClusterConfig, store: Path) -> Iterator[Client]:
     """Start the scheduler here and scale Slurm jobs of workers with the work; yield a client.
 
     Every job submitted is cancelled on the way out (end of the sweep, an error, Ctrl-C).

@@ -24,7 +24,7 @@ import zarr
 
 import sweep
 from sweep import records, store, walltime
-from sweep.runner import task_inputs
+from sweep.execute.run import task_inputs
 from sweep.tasks import make_tasks
 from sweep.worker import run_task, warm_up
 from shared_models import DIMERISING

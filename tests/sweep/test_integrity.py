@@ -24,7 +24,7 @@ from typer.testing import CliRunner
 
 import kernels
 import sweep
-from sweep import integrity, runner, store
+from sweep import integrity, lock, session, store
 from sweep.cli import app
 
 cli = CliRunner()
@@ -237,12 +237,12 @@ def _create_in_child(spec_path: Path, target: Path, step: int, how: str) -> int:
         try:
             kill = lambda: os.kill(os.getpid(), signal.SIGKILL)  # noqa: E731
             interrupt = lambda: signal.raise_signal(signal.SIGINT)  # noqa: E731
-            holder = runner._claim(spec, False)
+            holder = session._claim(spec, False)
             seen = _fault_at(step, target, kill if how == "kill" else interrupt)
             try:
-                runner.prepare_store(spec)
+                session.prepare(spec)
             finally:
-                runner.lock.release(target, holder)
+                lock.release(target, holder)
             code = 3 if seen["n"] < step else 0  # 3: finished before reaching the fault
         except KeyboardInterrupt:
             code = 130
@@ -265,11 +265,11 @@ def _layout(path: Path) -> dict:
 def _recreate(spec_path: Path, target: Path) -> None:
     """What the next `sweep run` does first: take the lock, then create or resume the store."""
     spec = sweep.load(spec_path, store=target)
-    holder = runner._claim(spec, False)
+    holder = session._claim(spec, False)
     try:
-        runner.prepare_store(spec)
+        session.prepare(spec)
     finally:
-        runner.lock.release(target, holder)
+        lock.release(target, holder)
 
 
 @pytest.mark.parametrize("how,every", [("kill", 1), ("interrupt", 3)])
@@ -340,8 +340,8 @@ def test_a_disk_that_fills_during_creation_leaves_nothing_that_passes_for_a_stor
         remount(f"{kib}k")
         try:
             _recreate(spec_path, target)
-        except OSError as exc:
-            assert exc.errno == 28, exc  # ENOSPC
+        except sweep.StoreError as exc:
+            assert "No space left on device" in str(exc), exc
         else:
             break
         failed_sizes += 1

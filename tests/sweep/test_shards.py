@@ -24,7 +24,8 @@ import zarr
 from typer.testing import CliRunner
 
 import sweep
-from sweep import claims, records, shard, store, walltime
+from sweep import claims, records, session, store, walltime
+from sweep.execute.execution import parse_shard
 from sweep.cli import app
 from sweep.lock import LOCK_NAME
 from shared_models import DIMERISING
@@ -90,15 +91,15 @@ def _run(cmd: list[str]) -> subprocess.CompletedProcess:
 
 def test_partition_is_fixed_balanced_and_covers_every_task_once():
     tasks = list(range(103))
-    parts = [shard.select(tasks, i, 4) for i in range(1, 5)]
+    parts = [session.select(tasks, i, 4) for i in range(1, 5)]
     assert sorted(sum(parts, [])) == tasks
     assert {len(p) for p in parts} == {25, 26}
     # any contiguous stretch (e.g. what an earlier run did not reach) is spread evenly too
     assert {sum(1 for t in p if 40 <= t < 80) for p in parts} == {10}
-    assert shard.parse("3/8") == (3, 8)
+    assert parse_shard("3/8") == (3, 8)
     for bad in ("0/4", "5/4", "3", "a/b", "1/0"):
         with pytest.raises(ValueError, match="I/N"):
-            shard.parse(bad)
+            parse_shard(bad)
 
 
 def test_walltime_budget_and_durations():

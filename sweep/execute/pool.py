@@ -1,0 +1,96 @@
+"""The one small interface every backend gives the run loop: a pool that runs tasks.
+
+A pool takes task inputs (``submit``), hands back each finished one with its result or its
+exception (``next``), says how many are in flight, and drops what is in flight (``cancel``).
+The loop (``sweep.execute.loop``) alone decides what to submit, retries, records and reports.
+
+``DaskPool`` serves the three Dask backends (a local cluster, an existing scheduler, Dask
+workers as Slurm jobs): each gives it a connected client. ``sweep.execute.shard`` runs tasks
+in this process instead.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Protocol
+
+if TYPE_CHECKING:
+    from distributed import Client
+
+    from sweep.worker import TaskInput, TaskResult
+
+
+@dataclass(frozen=True)
+class PoolInfo:
+    """What a pool tells the caller once it is up."""
+
+    workers: int
+    slots: int  # tasks it can run at once (for Slurm: the workers the cluster may grow to)
+    dashboard: str | None = None
+    address: str | None = None  # the scheduler's (tls://... when its workers talk over TLS)
+    packs: bool = True  # whether small blocks are worth packing (a task costs a round trip to send)
+
+    @property
+    def window(self) -> int:
+        """Tasks to keep in flight: enough to hide a round trip, bounded so 100,000 tasks are never held."""
+        return max(4 * self.slots, 16) if self.slots > 1 else self.slots
+
+
+class Pool(Protocol):
+    info: PoolInfo
+
+    def warm(self, task: TaskInput) -> None:
+        """Compile (or load) the task's kernel wherever tasks run, before the clock starts."""
+
+    def submit(self, tasks: list[TaskInput]) -> None: ...
+
+    def next(self) -> tuple[TaskInput, TaskResult | BaseException]:
+        """The next finished task (call only while ``in_flight()``)."""
+
+    def in_flight(self) -> int: ...
+
+    def cancel(self) -> None:
+        """Drop the tasks in flight: their chunks may be half-way and are never marked done."""
+
+
+class DaskPool:
+    """Tasks as Dask futures, completed in any order; only small results come back."""
+
+    def __init__(self, client: Client, slots: int):
+        from distributed import as_completed
+
+        self.client = client
+        workers = len(client.scheduler_info(n_workers=-1)["workers"])
+        self.info = PoolInfo(workers, max(slots, workers, 1), client.dashboard_link, client.scheduler.address)
+        self._completed = as_completed([], with_results=True, raise_errors=False)
+        self._owner: dict[str, TaskInput] = {}
+
+    def warm(self, task: TaskInput) -> None:
+        from sweep.worker import warm_up
+
+        self.client.run(warm_up, task)  # every worker imports and loads the cached kernel at once
+
+    def submit(self, tasks: list[TaskInput]) -> None:
+        from sweep.worker import run_task
+
+        # retries are the loop's; a future is dropped as soon as its small result is in
+        futures = self.client.map(run_task, tasks, pure=False)
+        self._owner.update((f.key, t) for f, t in zip(futures, tasks))
+        self._completed.update(futures)
+
+    def next(self) -> tuple[TaskInput, TaskResult | BaseException]:
+        future, result = next(self._completed)
+        task = self._owner.pop(future.key)
+        if future.status == "error":
+            return task, result[1]  # as_completed gives (type, exception, traceback) for errors
+        return task, result
+
+    def in_flight(self) -> int:
+        return len(self._owner)
+
+    def cancel(self) -> None:
+        futures = list(self._completed.futures)
+        if futures:
+            self.client.cancel(futures)
+        self._completed.clear()
+        self._owner.clear()
