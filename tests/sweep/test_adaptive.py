@@ -16,7 +16,6 @@ import os
 import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
@@ -230,6 +229,9 @@ def _done_count(store: Path) -> int:
         return 0
 
 
+SIGNAL_AFTER = Path(__file__).resolve().parents[1] / "support" / "signal_after.py"
+
+
 def _command(path: Path, store: Path) -> list[str]:
     return [sys.executable, "-m", "sweep.cli", "run", str(path), "--store", str(store), "--workers", "2"]
 
@@ -244,17 +246,13 @@ def test_sigkill_mid_round_then_resume_is_bit_identical(spec_file, tmp_path):
     assert total > FIRST_ROUND + 6  # there are later rounds to interrupt
 
     store = tmp_path / "killed.zarr"
-    proc = subprocess.Popen(_command(path, store), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                            start_new_session=True, env={**os.environ, "COLUMNS": "200"})
-    deadline = time.monotonic() + 180
-    while _done_count(store) <= FIRST_ROUND:  # into the second round
-        assert proc.poll() is None, proc.communicate()
-        assert time.monotonic() < deadline, "the sweep made no progress"
-        time.sleep(0.05)
-    os.killpg(proc.pid, signal.SIGKILL)
-    proc.wait(timeout=30)
+    # SIGKILL of the whole process group after the 3rd block of the second round has finished
+    killer = [sys.executable, str(SIGNAL_AFTER), str(FIRST_ROUND + 3), "SIGKILL", *_command(path, store)[3:]]
+    killed = subprocess.run(killer, capture_output=True, text=True, start_new_session=True, timeout=300,
+                            env={**os.environ, "COLUMNS": "200"})
+    assert killed.returncode == -signal.SIGKILL, killed.stdout + killed.stderr
     killed_at = _done_count(store)
-    assert FIRST_ROUND < killed_at < total, (killed_at, total)
+    assert killed_at < total, (killed_at, total)
 
     result = subprocess.run(_command(path, store), capture_output=True, text=True, timeout=300,
                             env={**os.environ, "COLUMNS": "200"})

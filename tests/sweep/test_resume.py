@@ -91,22 +91,16 @@ def _done_count(store: Path) -> int:
         return 0
 
 
-def _start(spec_path: Path, store: Path) -> subprocess.Popen:
-    """`sweep run` in its own session, so the test can signal its whole process group."""
-    cmd = [sys.executable, "-m", "sweep.cli", "run", str(spec_path), "--store", str(store), "--workers", "2"]
-    return subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                            start_new_session=True, env={**os.environ, "COLUMNS": "200"})
+SIGNAL_AFTER = Path(__file__).resolve().parents[1] / "support" / "signal_after.py"
 
 
-def _wait_for_progress(proc: subprocess.Popen, store: Path, at_least: int, timeout: float = 120) -> int:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        n = _done_count(store)
-        if n >= at_least:
-            return n
-        assert proc.poll() is None, proc.communicate()
-        time.sleep(0.1)
-    raise AssertionError("the sweep made no progress")
+def _signalled(spec_path: Path, store: Path, after: int, sig: str) -> subprocess.CompletedProcess:
+    """`sweep run` in its own session, signalled (its whole process group) after its ``after``-th
+    completed task: a fault at a known moment, never racing the sweep's end."""
+    cmd = [sys.executable, str(SIGNAL_AFTER), str(after), sig, "run", str(spec_path), "--store", str(store),
+           "--workers", "2"]
+    return subprocess.run(cmd, capture_output=True, text=True, start_new_session=True, timeout=300,
+                          env={**os.environ, "COLUMNS": "200"})
 
 
 def _rerun(spec_path: Path, store: Path) -> subprocess.CompletedProcess:
@@ -117,12 +111,10 @@ def _rerun(spec_path: Path, store: Path) -> subprocess.CompletedProcess:
 def test_sigkill_of_the_whole_run_then_resume(slow_reference, tmp_path):
     spec_path, expected = slow_reference
     store = tmp_path / "killed.zarr"
-    proc = _start(spec_path, store)
-    _wait_for_progress(proc, store, at_least=6)
-    os.killpg(proc.pid, signal.SIGKILL)
-    proc.wait(timeout=30)
+    killed = _signalled(spec_path, store, after=30, sig="SIGKILL")
+    assert killed.returncode == -signal.SIGKILL, killed.stdout + killed.stderr
     done_before = _done_count(store)
-    assert 6 <= done_before < 48, done_before
+    assert done_before < 30, done_before  # what was flushed before the kill (about once a second)
     assert (store / LOCK_NAME).exists()  # left behind by the dead run: stale, taken over below
     result = _rerun(spec_path, store)
     assert result.returncode == 0, result.stdout + result.stderr
@@ -134,10 +126,9 @@ def test_sigkill_of_the_whole_run_then_resume(slow_reference, tmp_path):
 def test_ctrl_c_stops_cleanly_and_prints_the_resume_command(slow_reference, tmp_path):
     spec_path, expected = slow_reference
     store = tmp_path / "interrupted.zarr"
-    proc = _start(spec_path, store)
-    _wait_for_progress(proc, store, at_least=4)
-    os.killpg(proc.pid, signal.SIGINT)  # as a terminal's Ctrl-C does: the whole process group
-    out, err = proc.communicate(timeout=60)
+    # as a terminal's Ctrl-C does: SIGINT to the whole process group, here after the 4th task
+    proc = _signalled(spec_path, store, after=4, sig="SIGINT")
+    out, err = proc.stdout, proc.stderr
     assert proc.returncode == 130, out + err
     last = out.strip().splitlines()[-1]
     assert last.startswith("resume with: "), out

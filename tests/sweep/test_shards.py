@@ -142,23 +142,26 @@ def test_four_shards_at_once_complete_and_match_a_local_run(reference, tmp_path)
     assert result.exit_code == 0 and "nothing to do" in result.output, result.output
 
 
-def _wait_for_record(target: Path, index: int, count: int, proc: subprocess.Popen, timeout: float = 120) -> None:
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        if len(records.read_file(records.done_file(target, index, count))) >= 1:
-            return
+SIGNAL_AFTER = Path(__file__).resolve().parents[1] / "support" / "signal_after.py"
+
+
+def _stopped_after_first_task(spec_path: Path, target: Path, which: str) -> subprocess.Popen:
+    """A shard that stops itself (SIGSTOP) right after recording its first task: alive, holding its
+    claim, for as long as the test needs, however fast the machine."""
+    proc = _start([sys.executable, str(SIGNAL_AFTER), "1", "SIGSTOP", *_shard_cmd(spec_path, target, which)[3:]])
+    deadline = time.monotonic() + 120
+    while psutil.Process(proc.pid).status() != psutil.STATUS_STOPPED:
         assert proc.poll() is None, proc.communicate()
+        assert time.monotonic() < deadline, "the shard recorded nothing"
         time.sleep(0.01)
-    raise AssertionError("the shard recorded nothing")
+    return proc
 
 
 def test_a_shard_runs_once_at_a_time_and_a_killed_shard_is_taken_over(reference, tmp_path):
     spec_path, expected = reference
     target = tmp_path / "claimed.zarr"
-    first = _start(_shard_cmd(spec_path, target, "1/2"))
-    _wait_for_record(target, 1, 2, first)
-    # stopped, not dead: its claim is live for as long as the checks below take, however fast it is
-    first.send_signal(signal.SIGSTOP)
+    # stopped, not dead: its claim is live for as long as the checks below take
+    first = _stopped_after_first_task(spec_path, target, "1/2")
     # the same shard again while the first runs: refused, exit code 2, naming the holder
     twin = _run(_shard_cmd(spec_path, target, "1/2"))
     assert twin.returncode == 2, twin.stdout + twin.stderr
