@@ -21,13 +21,13 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from sweep import expr as expressions
+from sweep import inputs
 from sweep.errors import SpecError
 from sweep.sbml import laws
 from sweep.sbml.math import AVOGADRO, from_ast, render
 from sweep.sbml.reactions import convert
 from sweep.sbml.units import molecules_per
 
-MAX_COUNT = 2**31 - 1  # counts are int32 in the kernels
 
 
 @dataclass(frozen=True)
@@ -111,6 +111,7 @@ def read(text: str, source: str) -> Imported:
     ['parameters', 'reactions', 'species']
     """
     ctx = _Context(source)
+    inputs.check_xml(text, source)  # nesting and size, before libsbml (which crashes on deep nesting)
     ctx.model, ctx.converted = _document(text, source)
     model = ctx.model
     _unsupported_elements(ctx)
@@ -292,8 +293,9 @@ def _count(ctx: _Context, s, sid: str, alpha: float, size: float, unit: str, rea
     else:
         ctx.problems.append(f"species {sid}: no initialAmount, initialConcentration or initial assignment")
         return 0
-    if not math.isfinite(value) or value < 0 or value > MAX_COUNT:
-        ctx.problems.append(f"species {sid}: initial count {value:g} ({how}) is not between 0 and {MAX_COUNT}")
+    # the cap of the integer-state methods (int32) is the spec's to apply: it depends on the method
+    if not math.isfinite(value) or value < 0:
+        ctx.problems.append(f"species {sid}: initial count {value:g} ({how}) is not a finite number >= 0")
         return 0
     count = math.floor(value + 0.5)
     shown = f"{value:.10g}" if count == value else f"{value:.10g}, rounded to {count}"
