@@ -46,6 +46,9 @@ MAX_REACTIONS = 100_000
 MAX_DEPENDENCIES = 10_000_000
 # the integer-state methods (direct, nrm, tau_leap) store counts as int32
 MAX_COUNT = 2**31 - 1
+# molecules of one species a reaction consumes or makes: the kernels hold it as int32 and loop
+# over it per propensity (C(x, m) is a product of m factors; tau-leaping's g_i a sum of m terms)
+MAX_STOICHIOMETRY = 1000
 
 # ---- the sweep's size ------------------------------------------------------------------------
 # every point is expanded in memory by check and run; the store's params and done arrays are
@@ -135,6 +138,6 @@ def mib(n: int) -> str:
 __all__ = [
     "INT64_MAX", "INT64_MIN", "MAX_CHUNK_BYTES", "MAX_COUNT", "MAX_DEPENDENCIES", "MAX_EVENT_CAP",
     "MAX_EXPRESSION_DEPTH", "MAX_EXPRESSION_LENGTH", "MAX_EXPRESSION_NODES", "MAX_FILE_BYTES", "MAX_POINTS",
-    "MAX_REACTIONS", "MAX_SAMPLES", "MAX_SPECIES", "MAX_TASKS", "MAX_TOML_BYTES", "MAX_TOML_DEPTH",
+    "MAX_REACTIONS", "MAX_SAMPLES", "MAX_SPECIES", "MAX_STOICHIOMETRY", "MAX_TASKS", "MAX_TOML_BYTES", "MAX_TOML_DEPTH",
     "MAX_XML_DEPTH", "NAME_MAX", "PATH_MAX", "check_sweep", "mib",
 ]

@@ -119,12 +119,17 @@ def _parse_side(side: str, text: str, source: str, field: str) -> tuple[tuple[st
     for term in side.split("+"):
         match = _TERM.match(term.strip())
         if not match:
-            raise SpecError(source, field, f"cannot read the term {term.strip()!r}", text,
+            raise SpecError(source, field, f"cannot read the term {term.strip()[:40]!r}", text,
                             "terms look like 'A', '2 A' or '2A', joined by '+'; '0' means nothing")
-        mult = int(match.group(1) or 1)
+        digits = match.group(1) or "1"
+        mult = int(digits) if len(digits) <= 6 else limits.MAX_STOICHIOMETRY + 1
         if mult < 1:
             raise SpecError(source, field, f"stoichiometry of {match.group(2)} must be at least 1", text)
         counts[match.group(2)] = counts.get(match.group(2), 0) + mult
+    for name, mult in counts.items():
+        if mult > limits.MAX_STOICHIOMETRY:
+            raise SpecError(source, field, f"{name} appears more than {limits.MAX_STOICHIOMETRY:,} times on one side",
+                            text, f"a reaction takes or makes at most {limits.MAX_STOICHIOMETRY:,} of one species")
     return tuple(counts.items())
 
 
@@ -252,7 +257,7 @@ def _check_keys(table, allowed, source, field):
 
 
 def _check_name(name, source, field):
-    if not _NAME.match(name):
+    if not isinstance(name, str) or not _NAME.fullmatch(name):
         raise SpecError(source, field, "names must be identifiers (letters, digits, '_')", name)
 
 
@@ -277,6 +282,7 @@ def _initial(value, param_names, source, field) -> int | str:
 
 
 def _reaction(name, spec, species, param_names, source, field) -> Reaction:
+    _check_name(name, source, field)
     if not isinstance(spec, dict):
         raise SpecError(source, field, "must be a table", spec,
                         'write it as { reaction = "A -> B", rate = "k" }')

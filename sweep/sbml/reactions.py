@@ -21,6 +21,7 @@ import math
 from typing import Any, Mapping
 
 from sweep import expr as expressions
+from sweep import limits
 from sweep.sbml import laws
 from sweep.sbml.math import from_ast, render
 
@@ -76,9 +77,9 @@ def _side(ctx, refs, where: str, role: str) -> dict[str, int] | None:
             ok = False
             continue
         value = ref.getStoichiometry()
-        if not math.isfinite(value) or value != int(value) or value < 1:
-            ctx.problems.append(f"{where}: {role} {sid} has stoichiometry {value:g}; only whole numbers >= 1 "
-                                "describe molecules")
+        if not math.isfinite(value) or value != int(value) or value < 1 or value > limits.MAX_STOICHIOMETRY:
+            ctx.problems.append(f"{where}: {role} {sid} has stoichiometry {value:g}; only whole numbers from 1 to "
+                                f"{limits.MAX_STOICHIOMETRY:,} describe molecules")
             ok = False
             continue
         if sid not in ctx.species:
