@@ -346,6 +346,13 @@ def test_run_refuses_before_creating_a_store(tmp_path, monkeypatch, item):
     assert not list(tmp_path.glob("*.zarr"))
 
 
+@pytest.mark.xfail(strict=True, reason="sweep/cli/common.py (not this branch) prints error messages as rich markup: "
+                   "'P[/]' raises MarkupError and '[species]' vanishes; see NOTES-hostile-input.md")
+def test_markup_in_a_name_is_printed_verbatim(tmp_path):
+    out = refused(write(tmp_path, model=MODEL.replace("P = 5", '"P[/]" = 5')), "species.P[/]", "identifiers")
+    out = refused(write(tmp_path, model=MODEL.replace("P = 5", '"[species]" = 5')), "species.[species]")
+
+
 def test_sbml_spec_base_is_valid(tmp_path):
     # the SBML cases above break this document one way each
     code, out, _ = check(write_sbml(tmp_path, sbml(), SBML_SPEC))
