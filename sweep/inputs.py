@@ -166,7 +166,7 @@ class _TooDeep(Exception):
 
 def check_xml(text: str, src: str) -> None:
     """Refuse an XML document nested deeper than ``limits.MAX_XML_DEPTH``, declaring entities,
-    or holding more species or reactions than ``limits.MAX_SPECIES`` / ``MAX_REACTIONS``.
+    or holding more species or reactions than ``limits.MAX_SBML_SPECIES`` / ``MAX_SBML_REACTIONS``.
 
     Malformed XML is left to libsbml, which reports it with line numbers: this stops at the
     first syntax error without complaint.
@@ -184,7 +184,7 @@ def check_xml(text: str, src: str) -> None:
             state[key] += 1
         if state["depth"] > limits.MAX_XML_DEPTH:
             raise _TooDeep(("depth", parser.CurrentLineNumber, local))
-        if state["species"] > limits.MAX_SPECIES or state["reactions"] > limits.MAX_REACTIONS:
+        if state["species"] > limits.MAX_SBML_SPECIES or state["reactions"] > limits.MAX_SBML_REACTIONS:
             raise _TooDeep(("count", parser.CurrentLineNumber, local))
 
     def end(name):
@@ -209,9 +209,10 @@ def check_xml(text: str, src: str) -> None:
         if kind == "depth":
             raise SpecError(src, where, f"<{name}> is nested more than {limits.MAX_XML_DEPTH} elements deep",
                             fix="flatten the math or the annotation there") from None
-        what, most = ("species", limits.MAX_SPECIES) if name == "species" else ("reactions", limits.MAX_REACTIONS)
-        raise SpecError(src, where, f"more than {most:,} {what}", fix=f"at most {most:,} {what} can be simulated "
-                        "here") from None
+        what, most = (("species", limits.MAX_SBML_SPECIES) if name == "species"
+                      else ("reactions", limits.MAX_SBML_REACTIONS))
+        raise SpecError(src, where, f"more than {most:,} {what} in an SBML model", fix=f"at most {most:,}: "
+                        "libsbml's validation time grows with the square of the model") from None
 
 
 # ---- paths -----------------------------------------------------------------------------------

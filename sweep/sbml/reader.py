@@ -76,6 +76,10 @@ class _Context:
     derived: dict = field(default_factory=dict)
     aliases: dict = field(default_factory=dict)
     alpha_e: float = 1.0
+    # built once, before the reactions (per reaction they made the import O(R x S))
+    all_species: frozenset = frozenset()                # every species id in the document
+    species_ids: frozenset = frozenset()                # the species that were read (ctx.species)
+    beta: dict = field(default_factory=dict)            # species -> molecules per unit in math
 
     def fresh(self, base: str) -> str:
         """A model name not used by the document or by another generated name."""
@@ -125,6 +129,9 @@ def read(text: str, source: str) -> Imported:
     _extent(ctx)
     ctx.values.update({p.getId(): p.getValue() for p in model.getListOfParameters() if p.isSetValue()})
     initial = _species(ctx)
+    ctx.all_species = frozenset(s.getId() for s in model.getListOfSpecies())
+    ctx.species_ids = frozenset(ctx.species)
+    ctx.beta = {s: info.beta for s, info in ctx.species.items()}
     _initial_assignments(ctx, initial)
     for p in model.getListOfParameters():
         if not p.isSetValue() and p.getId() not in ctx.derived:
@@ -306,6 +313,7 @@ def _count(ctx: _Context, s, sid: str, alpha: float, size: float, unit: str, rea
 def _initial_assignments(ctx: _Context, initial: dict[str, Any]) -> None:
     """Initial assignments to parameters and species become derived parameters."""
     env = {c: ("num", v) for c, v in ctx.compartments.items()}
+    parameters = {p.getId() for p in ctx.model.getListOfParameters()}
     pending = []
     for a in ctx.model.getListOfInitialAssignments():
         symbol = a.getSymbol()
@@ -317,7 +325,7 @@ def _initial_assignments(ctx: _Context, initial: dict[str, Any]) -> None:
         tree = from_ast(a.getMath(), env, ctx.functions, ctx.problems, where)
         if tree is None:
             continue
-        unknown = laws.names(tree) - {p.getId() for p in ctx.model.getListOfParameters()}
+        unknown = laws.names(tree) - parameters
         if unknown:
             ctx.problems.append(f"{where}: may use only parameters and numbers, not {', '.join(sorted(unknown))}")
             continue
