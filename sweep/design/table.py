@@ -66,6 +66,9 @@ def _read_csv(data: bytes, path: Path, source: str) -> tuple[list[str], list[tup
     if len(lines) < 2:
         raise SpecError(source, "design.file", f"{path} needs a header row and at least one row of values",
                         path.name)
+    if len(lines) - 1 > limits.MAX_POINTS:
+        raise SpecError(source, "design.file", f"{path} has {len(lines) - 1:,} rows, more than the "
+                        f"{limits.MAX_POINTS:,} points a sweep can hold", path.name, "split it into several sweeps")
     parsed = list(csv.reader([line for _, line in lines]))
     header = [h.strip() for h in parsed[0]]
     for h in header:

@@ -183,6 +183,14 @@ def test_5_sample_time_list(tmp_path, monkeypatch):
     refused(write(tmp_path, spec=spec), "time.points", "11 sample times, more than 10")
 
 
+def test_5_design_table_rows(tmp_path, monkeypatch):
+    # rows are counted before the CSV is parsed into numbers; the limit is lowered to keep it quick
+    monkeypatch.setattr(limits, "MAX_POINTS", 5)
+    (tmp_path / "points.csv").write_text("k_tl\n" + "1.0\n" * 6)
+    spec = SPEC.replace("[design.vary]\nk_tl = [2.0, 4.0]", '[design]\nkind = "table"\nfile = "points.csv"')
+    refused(write(tmp_path, spec=spec), "design.file", "6 rows, more than the 5 points")
+
+
 # ---- 6. store paths beyond the operating system's limits -------------------------------------
 
 def test_6_store_name_too_long(tmp_path):
