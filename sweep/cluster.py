@@ -31,11 +31,11 @@ its tasks go to other workers, and a new job is submitted in its place while wor
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Mapping
 
+from sweep import inputs, limits
 from sweep.errors import SpecError
 from sweep.walltime import parse_duration
 
@@ -185,16 +185,9 @@ def read_profile(path: str | Path) -> dict[str, Any]:
         Missing or unreadable file, TOML syntax error, no ``[cluster]`` table, or a bad key.
     """
     src = str(path)
-    try:
-        text = Path(path).read_text(encoding="utf-8")
-    except FileNotFoundError as exc:
-        raise SpecError(src, "", "profile file not found", fix="check the --profile path") from exc
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SpecError(src, "", f"cannot read the profile: {exc}") from exc
-    try:
-        doc = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise SpecError(src, "", f"TOML syntax error: {exc}", fix="see https://toml.io for the syntax") from exc
+    if not Path(path).exists():
+        raise SpecError(src, "", "profile file not found", fix="check the --profile path")
+    doc = inputs.parse_toml(inputs.read_text(Path(path), src, "", limits.MAX_TOML_BYTES), src)
     for key in doc:
         if key != TABLE:
             raise SpecError(src, key, "unknown table in a site profile", fix=f"put the settings under [{TABLE}]")

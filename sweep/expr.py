@@ -5,7 +5,10 @@ against a whitelist: numbers, names, ``+ - * / **``, unary ``+``/``-``, parenthe
 of ``min``, ``max``, ``exp``, ``log`` (natural), ``sqrt`` and the named rate laws ``hill_up(x, vmax,
 K, n)``, ``hill_down(x, vmax, K, n)`` and ``michaelis(s, vmax, Km)``. Everything else (attributes,
 subscripts, other calls, keyword arguments, lambdas, comprehensions, comparisons, strings,
-``//`` and ``%``, ...) is refused with a ``SpecError`` naming the field. The checked tree is
+``//`` and ``%``, ...) is refused with a ``SpecError`` naming the field, as are numbers that are
+not finite (``1e309`` reads as infinity) and expressions longer than
+``limits.MAX_EXPRESSION_LENGTH`` characters or nested deeper than ``limits.MAX_EXPRESSION_DEPTH``
+levels (a rate law becomes generated source, and Python's parser bounds its nesting). The checked tree is
 copied into plain nested tuples, so evaluation never calls Python's ``eval`` and never sees
 an ``ast`` object: nothing the user wrote can reach anything but the arithmetic below.
 
@@ -23,9 +26,11 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from sweep import limits
 from sweep.errors import SpecError
 
-MAX_LENGTH = 1000
+MAX_LENGTH = limits.MAX_EXPRESSION_LENGTH
+MAX_DEPTH = limits.MAX_EXPRESSION_DEPTH
 
 _BINARY = {ast.Add: "+", ast.Sub: "-", ast.Mult: "*", ast.Div: "/", ast.Pow: "**"}
 _OPS = {"+": np.add, "-": np.subtract, "*": np.multiply, "/": np.divide, "**": np.power}
@@ -75,7 +80,8 @@ def parse(text: str, source: str, field: str) -> Expr:
     Raises
     ------
     SpecError
-        Not a string, too long, a syntax error, or any construct outside the whitelist.
+        Not a string, too long or too deeply nested, a syntax error, a number that is not finite,
+        or any construct outside the whitelist.
 
     Example
     -------
@@ -93,9 +99,10 @@ def parse(text: str, source: str, field: str) -> Expr:
                         f"allowed: {_ALLOWED}") from exc
     names: list[str] = []
     try:
-        tree = _convert(body, names, text, source, field)
+        tree = _convert(body, names, text, source, field, 0)
     except RecursionError as exc:
-        raise SpecError(source, field, "expression nested too deeply", text) from exc
+        raise SpecError(source, field, "expression nested too deeply", text,
+                        f"at most {MAX_DEPTH} levels of operators and calls") from exc
     return Expr(text, tree, tuple(dict.fromkeys(names)))
 
 
@@ -103,19 +110,22 @@ def _reason(exc: BaseException) -> str:
     return exc.msg if isinstance(exc, SyntaxError) and exc.msg else type(exc).__name__
 
 
-def _convert(node: ast.AST, names: list[str], text: str, source: str, field: str) -> tuple:
+def _convert(node: ast.AST, names: list[str], text: str, source: str, field: str, depth: int) -> tuple:
     """Copy a whitelisted ``ast`` node into a tuple tree; refuse everything else."""
     def refuse(what: str, fix: str = f"allowed: {_ALLOWED}") -> SpecError:
         return SpecError(source, field, f"{what} not allowed in an expression", text, fix)
 
     def sub(child: ast.AST) -> tuple:
-        return _convert(child, names, text, source, field)
+        return _convert(child, names, text, source, field, depth + 1)
 
+    if depth > MAX_DEPTH:
+        raise SpecError(source, field, f"expression nested more than {MAX_DEPTH} levels deep", text,
+                        f"a sum of n terms is n levels: split it, e.g. into derived parameters")
     if isinstance(node, ast.Constant):
         value = node.value
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise refuse(f"the constant {value!r} is")
-        return ("num", float(value))
+        return ("num", _finite(value, ast.get_source_segment(text.strip(), node) or repr(value), text, source, field))
     if isinstance(node, ast.Name):
         names.append(node.id)
         return ("name", node.id)
@@ -132,6 +142,19 @@ def _convert(node: ast.AST, names: list[str], text: str, source: str, field: str
     if isinstance(node, ast.Call):
         return _call(node, sub, refuse)
     raise refuse(f"{_describe(node)} is")
+
+
+def _finite(value: int | float, literal: str, text: str, source: str, field: str) -> float:
+    """A literal as a float; one beyond the float range (``1e309`` reads as infinity) is refused."""
+    try:
+        number = float(value)
+    except OverflowError:
+        number = float("inf")
+    if not np.isfinite(number):
+        shown = literal if len(literal) <= 30 else f"{literal[:12]}... ({len(literal)} digits)"
+        raise SpecError(source, field, f"the number {shown} is beyond the floating-point range (about 1.8e308) "
+                        "and would be infinite", text, "write a finite number, or a parameter")
+    return number
 
 
 def _call(node: ast.Call, sub, refuse) -> tuple:

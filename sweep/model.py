@@ -31,7 +31,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from kernels.network import Network
-from sweep import expr, ratelaws
+from sweep import expr, limits, ratelaws
 from sweep.errors import SpecError
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -119,12 +119,17 @@ def _parse_side(side: str, text: str, source: str, field: str) -> tuple[tuple[st
     for term in side.split("+"):
         match = _TERM.match(term.strip())
         if not match:
-            raise SpecError(source, field, f"cannot read the term {term.strip()!r}", text,
+            raise SpecError(source, field, f"cannot read the term {term.strip()[:40]!r}", text,
                             "terms look like 'A', '2 A' or '2A', joined by '+'; '0' means nothing")
-        mult = int(match.group(1) or 1)
+        digits = match.group(1) or "1"
+        mult = int(digits) if len(digits) <= 6 else limits.MAX_STOICHIOMETRY + 1
         if mult < 1:
             raise SpecError(source, field, f"stoichiometry of {match.group(2)} must be at least 1", text)
         counts[match.group(2)] = counts.get(match.group(2), 0) + mult
+    for name, mult in counts.items():
+        if mult > limits.MAX_STOICHIOMETRY:
+            raise SpecError(source, field, f"{name} appears more than {limits.MAX_STOICHIOMETRY:,} times on one side",
+                            text, f"a reaction takes or makes at most {limits.MAX_STOICHIOMETRY:,} of one species")
     return tuple(counts.items())
 
 
@@ -149,6 +154,10 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     species_t = _table(table, "species", source, prefix, required=True)
     params_t = _table(table, "parameters", source, prefix, required=False)
     reactions_t = _table(table, "reactions", source, prefix, required=True)
+    for key, found, most in (("species", species_t, limits.MAX_SPECIES), ("reactions", reactions_t, limits.MAX_REACTIONS)):
+        if len(found) > most:
+            raise SpecError(source, f"{prefix}{key}", f"{len(found):,} {key}, more than the {most:,} a model may have",
+                            fix=f"at most {most:,} {key}")
 
     parameters = []
     for name, value in params_t.items():
@@ -168,13 +177,16 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
         initial.append(_initial(value, param_names, source, field))
 
     constants, volume = _units(table.get("units"), source, f"{prefix}units")
-    reactions = tuple(_reaction(name, spec, set(species), param_names, source, f"{prefix}reactions.{name}")
+    known = set(species)  # built once: a set per reaction made large models quadratic
+    reactions = tuple(_reaction(name, spec, known, param_names, source, f"{prefix}reactions.{name}")
                       for name, spec in reactions_t.items())
     if not reactions:
         raise SpecError(source, f"{prefix}reactions", "the model has no reactions",
                         fix="add at least one, e.g. decay = { reaction = \"A -> 0\", rate = 0.1 }")
     _check_parameter_uses(dict(parameters), reactions, initial, source, prefix)
-    return Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume)
+    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume)
+    _check_dependencies(model, source, prefix)
+    return model
 
 
 def _units(table, source, field) -> tuple[str, float | None]:
@@ -245,7 +257,7 @@ def _check_keys(table, allowed, source, field):
 
 
 def _check_name(name, source, field):
-    if not _NAME.match(name):
+    if not isinstance(name, str) or not _NAME.fullmatch(name):
         raise SpecError(source, field, "names must be identifiers (letters, digits, '_')", name)
 
 
@@ -261,12 +273,16 @@ def _initial(value, param_names, source, field) -> int | str:
             raise SpecError(source, field, "initial count names an unknown parameter", value,
                             "give a whole number or the name of a parameter in [parameters]")
         return value
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or value < 0 or value != int(value):
-        raise SpecError(source, field, "initial count must be a whole number >= 0", value)
+    if (isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0
+            or value != int(value)):
+        raise SpecError(source, field, "initial count must be a whole number >= 0", value,
+                        f"a finite whole number; at most {limits.MAX_COUNT:,} for the integer-state methods "
+                        "(direct, nrm, tau_leap)")
     return int(value)
 
 
 def _reaction(name, spec, species, param_names, source, field) -> Reaction:
+    _check_name(name, source, field)
     if not isinstance(spec, dict):
         raise SpecError(source, field, "must be a table", spec,
                         'write it as { reaction = "A -> B", rate = "k" }')
@@ -281,7 +297,7 @@ def _reaction(name, spec, species, param_names, source, field) -> Reaction:
     for sp, _ in reactants + products:
         if sp not in species:
             raise SpecError(source, f"{field}.reaction", f"unknown species {sp!r}", spec["reaction"],
-                            f"declare it under [species]; known: {', '.join(sorted(species))}")
+                            f"declare it under [species]; known: {listing(sorted(species))}")
     if "propensity" in spec:
         law = expr.parse(spec["propensity"], source, f"{field}.propensity")
         for n in law.names:
@@ -317,19 +333,72 @@ def compile_network(model: Model) -> Network:
             reactant_idx[j, i], reactant_mult[j, i] = index[sp], m
         for i, (s, v) in enumerate(sorted(changes[j].items())):
             change_idx[j, i], change_val[j, i] = s, v
-    # a custom law depends on every species it reads (modifiers included), not only its reactants
-    depends_on = [{index[sp] for sp, _ in r.reactants}
-                  | ({index[n] for n in r.propensity.names if n in index} if r.propensity else set())
-                  for r in model.reactions]
     dep_ptr, dep_idx = [0], []
-    for j in range(n_r):
-        touched = set(changes[j])
-        dep_idx.extend(r for r in range(n_r) if depends_on[r] & touched)
+    for row in _dependency_rows(model, index, changes):
+        dep_idx.extend(row)
         dep_ptr.append(len(dep_idx))
     law_mask = np.array([r.propensity is not None for r in model.reactions], dtype=np.int8)
     return Network(reactant_idx, reactant_mult, change_idx, change_val,
                    np.asarray(dep_ptr, dtype=np.int32), np.asarray(dep_idx, dtype=np.int32), law_mask,
                    _rate_law(model, index))
+
+
+def _readers(model: Model, index: Mapping[str, int]) -> list[list[int]]:
+    """For each species, the reactions whose propensity reads it, in ascending order.
+
+    A custom law depends on every species it reads (modifiers included), not only its reactants.
+    """
+    readers: list[list[int]] = [[] for _ in model.species]
+    for r, reaction in enumerate(model.reactions):
+        read = {index[sp] for sp, _ in reaction.reactants}
+        if reaction.propensity is not None:
+            read |= {index[n] for n in reaction.propensity.names if n in index}
+        for s in read:
+            readers[s].append(r)
+    return readers
+
+
+def _dependency_rows(model: Model, index: Mapping[str, int], changes: list[dict[int, int]]):
+    """Row j of the dependency graph for each reaction j: the reactions whose propensity reads a
+    species that j changes, ascending (Gibson & Bruck 2000).
+
+    Linear in the graph's size through a species -> readers index; the rows are exactly those of
+    testing every pair (j, r), in the same order, which the kernels' bit-identity depends on.
+    """
+    readers = _readers(model, index)
+    for j in range(len(model.reactions)):
+        touched = [s for s in changes[j] if readers[s]]
+        if len(touched) == 1:
+            yield readers[touched[0]]
+        else:
+            yield sorted(set().union(*(readers[s] for s in touched)))
+
+
+def _check_dependencies(model: Model, source: str, prefix: str) -> None:
+    """Refuse a dependency graph beyond ``limits.MAX_DEPENDENCIES`` entries before building it."""
+    index = {name: i for i, name in enumerate(model.species)}
+    changes = [_net_change(r, index) for r in model.reactions]
+    readers = _readers(model, index)
+    # an upper bound first: the sum over j of the readers of each species j changes
+    bound = sum(len(readers[s]) for c in changes for s in c)
+    if bound <= limits.MAX_DEPENDENCIES:
+        return
+    total = 0
+    for row in _dependency_rows(model, index, changes):
+        total += len(row)
+        if total > limits.MAX_DEPENDENCIES:
+            break
+    else:
+        return
+    writers = [0] * len(model.species)
+    for c in changes:
+        for s in c:
+            writers[s] += 1
+    hub = max(range(len(model.species)), key=lambda s: writers[s] * len(readers[s]))
+    raise SpecError(source, f"{prefix}reactions", f"the dependency graph (reactions to recompute after each "
+                    f"reaction) has more than {limits.MAX_DEPENDENCIES:,} entries; species {model.species[hub]!r} "
+                    f"is changed by {writers[hub]:,} reactions and read by {len(readers[hub]):,}",
+                    fix="simulate a smaller network, or one where fewer reactions share a species")
 
 
 def _rate_law(model: Model, index: Mapping[str, int]):
@@ -368,11 +437,34 @@ def rate_constants(model: Model, values: Mapping[str, float]) -> np.ndarray:
 
 
 def initial_counts(model: Model, values: Mapping[str, float]) -> np.ndarray:
-    """Initial molecule counts for one point's parameter values (int64)."""
-    return np.array([values[v] if isinstance(v, str) else v for v in model.initial], dtype=np.int64)
+    """Initial molecule counts for one point's parameter values.
+
+    int64; float64 only when a count is beyond int64, which a spec allows only for the methods
+    with a real-valued state (``sweep.spec`` caps the integer-state methods at int32).
+    """
+    counts = [values[v] if isinstance(v, str) else v for v in model.initial]
+    if all(abs(c) <= limits.INT64_MAX for c in counts):
+        return np.array(counts, dtype=np.int64)
+    return np.array([float(c) for c in counts], dtype=np.float64)
 
 
-def describe(model: Model) -> list[tuple[str, str, str]]:
-    """Rows (name, equation, rate or propensity) in our own notation, for ``sweep check``."""
-    return [(r.name, r.equation, f"propensity {r.propensity.text}" if r.propensity else str(r.rate))
-            for r in model.reactions]
+DESCRIBED = 1000  # rows ``describe`` lists; a terminal table of more is slow to draw and to read
+
+
+def describe(model: Model, rows: int = DESCRIBED) -> list[tuple[str, str, str]]:
+    """Rows (name, equation, rate or propensity) in our own notation, for ``sweep check``.
+
+    At most ``rows`` reactions are listed, then one row saying how many more there are.
+    """
+    out = [(r.name, r.equation, f"propensity {r.propensity.text}" if r.propensity else str(r.rate))
+           for r in model.reactions[:rows]]
+    if len(model.reactions) > rows:
+        out.append(("...", f"and {len(model.reactions) - rows:,} more reactions", ""))
+    return out
+
+
+def listing(names, most: int = 20) -> str:
+    """Names for a message, the first ``most`` of them (in the order given) and how many more."""
+    names = list(names)
+    shown = ", ".join(names[:most]) or "(none)"
+    return shown + (f", ... ({len(names) - most:,} more)" if len(names) > most else "")

@@ -42,7 +42,6 @@ from __future__ import annotations
 
 import functools
 import hashlib
-import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
@@ -55,9 +54,10 @@ from sweep import cluster as clusters
 from sweep import design as designs
 from sweep import specdiff
 from sweep import expr as expressions
-from sweep import sbml
+from sweep import inputs, limits, sbml
 from sweep.errors import SpecError
-from sweep.model import Model, parse_model
+from sweep.model import Model, listing, parse_model
+from sweep.values import check_points
 
 DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
@@ -210,6 +210,9 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
 
     ``path`` is used in error messages and to name the model file. A store keeps both texts
     in its attributes, so ``sweep trace`` rebuilds the exact spec a store was run with.
+
+    Sizes beyond ``sweep.limits`` (points, tasks, samples, one task's chunk, the event cap, the
+    store path) are refused before the design is expanded or anything is allocated.
     """
     path = Path(path)
     doc = _parse_toml(text, str(path))
@@ -222,7 +225,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     run = _sub(doc, "run", src)
     _unknown(run, _RUN_KEYS, src, "run")
     method = run.get("method", "direct")
-    if method not in kernels.METHODS:
+    if not isinstance(method, str) or method not in kernels.METHODS:
         raise SpecError(src, "run.method", "unknown method", method,
                         f"choose one of: {', '.join(sorted(kernels.METHODS))}")
     replicates = _int(run, "replicates", src, "run", minimum=1,
@@ -234,8 +237,10 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     per_task = _int(run, "replicates_per_task", src, "run", minimum=1,
                     default=min(replicates, DEFAULT_REPLICATES_PER_TASK))
     seed = _int(run, "seed", src, "run", minimum=0, default=0)
-    max_events = _int(run, "max_events", src, "run", minimum=1, default=DEFAULT_MAX_EVENTS)
+    max_events = _int(run, "max_events", src, "run", minimum=1, default=DEFAULT_MAX_EVENTS,
+                      maximum=limits.MAX_EVENT_CAP)
     store_path = Path(store) if store is not None else Path(_str(run, "store", src, "run", f"{path.stem}.zarr"))
+    inputs.check_path(store_path, src, "--store" if store is not None else "run.store")
     times = _times(_sub(doc, "time", src, required=True), src)
     adaptive = None
     if "adaptive" in run:
@@ -245,6 +250,9 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     fixed = _fixed(overrides, model, src)
     design = designs.parse(_sub(doc, "design", src), dict(fixed), src)
     derived = _derived(_sub(doc, "derived", src), dict(fixed), overrides, design.names, src)
+    limits.check_sweep(designs.size(design), adaptive.max_replicates if adaptive is not None else replicates,
+                       per_task, len(times), len(model.species), lambda: _itemsize(method),
+                       "run.adaptive.max_replicates" if adaptive is not None else "run.replicates", src)
     hashed = text.encode() + b"\0" + model_text.encode()
     if design.option("file_sha256"):
         # a design read from a file (a table of points): changing the file changes the sweep
@@ -254,7 +262,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
                 max_events, times, fixed, design, derived, options, adaptive,
                 model_notes=imported.notes if imported is not None else (),
                 cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()))
-    _check_points(spec, src)
+    check_points(spec, src, _model_source(doc, path))
     return spec
 
 
@@ -280,19 +288,16 @@ def _options(table: Any, method: str, src: str) -> tuple[tuple[str, Any], ...]:
 
 
 def _read(path: Path, src: str, field: str) -> str:
-    try:
-        return path.read_text(encoding="utf-8")
-    except FileNotFoundError as exc:
-        raise SpecError(src, field, "file not found", str(path), "check the path") from exc
-    except (OSError, UnicodeDecodeError) as exc:
-        raise SpecError(src, field, f"cannot read the file: {exc}", str(path)) from exc
+    """A spec or model file's text: a regular file, at most ``limits.MAX_TOML_BYTES`` (TOML) or
+    ``limits.MAX_FILE_BYTES`` (SBML)."""
+    if field:
+        inputs.check_path(path, src, field)
+    limit = limits.MAX_FILE_BYTES if sbml.is_sbml(path) else limits.MAX_TOML_BYTES
+    return inputs.read_text(path, src, field, limit)
 
 
 def _parse_toml(text: str, src: str) -> dict:
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise SpecError(src, "", f"TOML syntax error: {exc}", fix="see https://toml.io for the syntax") from exc
+    return inputs.parse_toml(text, src)
 
 
 def _load_model(doc: Mapping[str, Any], path: Path, model_text: str) -> tuple[Model, sbml.Imported | None]:
@@ -329,7 +334,7 @@ def _unknown(table, allowed, src, prefix) -> None:
             raise SpecError(src, field, "unknown key", fix=f"expected one of: {', '.join(sorted(allowed))}")
 
 
-def _int(table, key, src, prefix, minimum, default):
+def _int(table, key, src, prefix, minimum, default, maximum=None):
     field = f"{prefix}.{key}"
     if key not in table:
         if default is None:
@@ -340,6 +345,8 @@ def _int(table, key, src, prefix, minimum, default):
         raise SpecError(src, field, "must be a whole number", value)
     if value < minimum:
         raise SpecError(src, field, f"must be at least {minimum}", value)
+    if maximum is not None and value > maximum:
+        raise SpecError(src, field, f"must be at most {maximum:,}", value, f"use {key} <= {maximum:,}")
     return value
 
 
@@ -358,12 +365,15 @@ def _times(table, src) -> tuple[float, ...]:
         pts = table["points"]
         if not isinstance(pts, list) or not pts or not all(_is_num(v) for v in pts):
             raise SpecError(src, "time.points", "must be a non-empty list of numbers", pts)
+        if len(pts) > limits.MAX_SAMPLES:
+            raise SpecError(src, "time.points", f"{len(pts):,} sample times, more than {limits.MAX_SAMPLES:,}",
+                            fix=f"sample at most {limits.MAX_SAMPLES:,} times")
         arr = np.asarray(pts, dtype=np.float64)
     else:
         if "end" not in table or not _is_num(table["end"]) or not table["end"] > 0:
             raise SpecError(src, "time.end", "must be a number > 0", table.get("end"),
                             "add end = <last sample time> under [time], or list points = [...]")
-        samples = _int(table, "samples", src, "time", minimum=2, default=DEFAULT_SAMPLES)
+        samples = _int(table, "samples", src, "time", minimum=2, default=DEFAULT_SAMPLES, maximum=limits.MAX_SAMPLES)
         return tuple(float(t) for t in np.linspace(0.0, float(table["end"]), samples))
     if np.any(arr < 0):
         raise SpecError(src, "time.points", "sample times must be >= 0", pts)
@@ -390,7 +400,7 @@ def _fixed(table, model: Model, src) -> tuple[tuple[str, float], ...]:
 
 
 def _known(values) -> str:
-    return f"known parameters: {', '.join(values) or '(none)'}"
+    return f"known parameters: {listing(values)}"
 
 
 def _derived(table, known, overrides, varied, src) -> tuple[tuple[str, expressions.Expr], ...]:
@@ -438,59 +448,12 @@ def _evaluation_order(exprs: Mapping[str, expressions.Expr], src: str) -> list[s
     return order
 
 
-def _check_points(spec: Spec, src: str) -> None:
-    """Every point must give non-negative rates and whole, non-negative initial counts."""
-    rate_params = {r.rate for r in spec.model.reactions if isinstance(r.rate, str)}
-    count_params = {v for v in spec.model.initial if isinstance(v, str)}
-    roles = (rate_params, count_params)
-    model_values = spec.model.parameter_values
-    derived = dict(spec.derived)
-    for name, value in spec.fixed:
-        if name not in spec.param_names and name not in derived and value != model_values[name]:
-            _check_value(name, value, *roles, src, f"parameters.{name}")
-    facts = designs.describe(spec.design)["parameters"]
-    for name in spec.param_names:
-        if (name in rate_params or name in count_params) and facts.get(name, {}).get("low", 0.0) is None:
-            raise SpecError(src, f"design.vary.{name}", f"{name} must be >= 0 but its distribution is unbounded below",
-                            fix="truncate it: add low = 0")
-    points = spec.points()
-    for q, name in enumerate(spec.param_names):
-        for value in np.unique(points[:, q]):
-            _check_value(name, float(value), *roles, src, f"design.vary.{name}")
-    if derived and points.shape[0]:
-        _check_derived(spec, points, derived, roles, src)
+def _model_source(doc: Mapping[str, Any], path: Path) -> tuple[str, str]:
+    """The file that holds the model, and the dotted prefix of its tables there."""
+    entry = doc.get("model")
+    return (str(path.parent / entry), "") if isinstance(entry, str) else (str(path), "model.")
 
 
-def _check_derived(spec: Spec, points: np.ndarray, derived, roles, src) -> None:
-    """Derived values must be finite everywhere, and valid wherever they are rates or counts."""
-    rate_params, count_params = roles
-    columns = spec.columns(points)
-    for name, expr in derived.items():
-        values = np.asarray(columns[name], dtype=np.float64)
-        problems = [(~np.isfinite(values), "is not a finite number",
-                     "check for a division by zero, the log of a number <= 0, or an overflow")]
-        if name in rate_params:
-            problems.append((values < 0, f"rate constant {name} must be >= 0", ""))
-        if name in count_params:
-            problems.append(((values < 0) | (values != np.round(values)),
-                             f"{name} sets an initial count and must be a whole number >= 0",
-                             "the expression must come out whole at every point"))
-        for mask, problem, fix in problems:
-            with np.errstate(invalid="ignore"):
-                bad = np.flatnonzero(mask)
-            if bad.size:
-                p = int(bad[0])
-                raise SpecError(src, f"derived.{name}", f"{problem}: it is {values[p]:g} at point {p} "
-                                f"({_point_text(spec, points[p])})", expr.text, fix)
-
-
-def _point_text(spec: Spec, row: np.ndarray) -> str:
-    return ", ".join(f"{n} = {v:g}" for n, v in zip(spec.param_names, row)) or "the only point"
-
-
-def _check_value(name, value, rate_params, count_params, src, field) -> None:
-    if name in rate_params and value < 0:
-        raise SpecError(src, field, f"rate constant {name} must be >= 0", value)
-    if name in count_params and (value < 0 or value != int(value)):
-        fix = "add integer = true to its entry" if field.startswith("design.") else ""
-        raise SpecError(src, field, f"{name} sets an initial count and must be a whole number >= 0", value, fix)
+def _itemsize(method: str) -> int:
+    """Bytes per count in ``method``'s store (``COUNTS_DTYPE`` of its kernel module, int32 by default)."""
+    return np.dtype(getattr(kernels.get(method), "COUNTS_DTYPE", np.int32)).itemsize

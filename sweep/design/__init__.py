@@ -6,6 +6,8 @@
   function of the design and the spec's root seed (no I/O, clock or environment).
 - ``describe(design) -> dict`` gives JSON-ready facts (kind, names, per-parameter ranges and
   what an analysis needs later, e.g. Saltelli's N and D); the store keeps them.
+- ``size(design) -> int`` gives the number of points ``expand`` would give, computed without
+  expanding, so a spec asking for too many (``sweep.limits.MAX_POINTS``) is refused first.
 
 Same design and seed, same points in the same order: resume and per-point seeds depend on it.
 
@@ -84,6 +86,17 @@ def expand(design: Design, seed: int) -> np.ndarray:
     return importlib.import_module(DESIGNS[design.kind]).expand(design, seed)
 
 
+def size(design: Design) -> int:
+    """The number of points ``expand`` gives, without expanding them.
+
+    Example
+    -------
+    >>> size(parse({"vary": {"k": [1, 2], "g": [1, 2, 3]}}, {"k": 1.0, "g": 1.0}, "spec.toml"))
+    6
+    """
+    return int(importlib.import_module(DESIGNS[design.kind]).size(design))
+
+
 def describe(design: Design) -> dict[str, Any]:
     """JSON-serialisable facts about a design, for the store's attributes and for analysis.
 
@@ -99,4 +112,4 @@ def describe(design: Design) -> dict[str, Any]:
     return importlib.import_module(DESIGNS[design.kind]).describe(design)
 
 
-__all__ = ["DESIGNS", "DESIGN_SPAWN_KEY", "Design", "describe", "expand", "parse", "rng"]
+__all__ = ["DESIGNS", "DESIGN_SPAWN_KEY", "Design", "describe", "expand", "parse", "rng", "size"]

@@ -13,6 +13,7 @@ Points run through every combination; the last parameter changes fastest.
 from __future__ import annotations
 
 import itertools
+import math
 from typing import Any, Mapping
 
 import numpy as np
@@ -51,6 +52,11 @@ def expand(design: Design, seed: int = 0) -> np.ndarray:
         return np.zeros((1, 0))
     combos = itertools.product(*values.values())
     return np.array(list(combos), dtype=np.float64).reshape(-1, len(values))
+
+
+def size(design: Design) -> int:
+    """The product of the level counts (1 without varied parameters)."""
+    return math.prod(len(v) for _, v in design.option("values", ()))
 
 
 def describe(design: Design) -> dict[str, Any]:

@@ -16,6 +16,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from sweep import limits
 from sweep.errors import SpecError
 
 SPACINGS = ("linear", "log")
@@ -50,6 +51,9 @@ def _range(name: str, entry: Mapping[str, Any], source: str, field: str) -> tupl
     if isinstance(count, bool) or not isinstance(count, int) or count < 2:
         raise SpecError(source, f"{field}.count", "must be a whole number >= 2", count,
                         "the number of levels from low to high; for a single value use a list")
+    if count > limits.MAX_POINTS:
+        raise SpecError(source, f"{field}.count", f"more levels than the {limits.MAX_POINTS:,} points a sweep can "
+                        "hold", count, f"use at most {limits.MAX_POINTS:,} levels (fewer when other parameters vary)")
     spacing = entry.get("spacing", "linear")
     if spacing not in SPACINGS:
         raise SpecError(source, f"{field}.spacing", "unknown spacing", spacing, "choose linear or log")

@@ -68,6 +68,11 @@ def expand(design: Design, seed: int) -> np.ndarray:
     return sampled.cross(design, sampler.random(design.option("points")))
 
 
+def size(design: Design) -> int:
+    """The sample size times the number of conditions."""
+    return design.option("points") * sampled.conditions(design)
+
+
 def describe(design: Design) -> dict[str, Any]:
     """Kind, names, distributions, sample size and optimisation."""
     return sampled.describe(design, points_per_condition=design.option("points"),

@@ -87,6 +87,11 @@ def points_per_condition(design: Design) -> int:
     return design.option("trajectories") * (len(design.option("margins")) + 1)
 
 
+def size(design: Design) -> int:
+    """r (D + 1) points per condition."""
+    return points_per_condition(design) * sampled.conditions(design)
+
+
 def describe(design: Design) -> dict[str, Any]:
     """Kind, names, ranges and what the elementary-effects analysis needs (levels, trajectories)."""
     drawn = design.option("margins")

@@ -62,6 +62,12 @@ def expand(design: Design, seed: int) -> np.ndarray:
     return sampled.cross(design, unit)
 
 
+def size(design: Design) -> int:
+    """N(2D + 2) or N(D + 2) rows per condition."""
+    d = len(design.option("margins"))
+    return rows_per_sample(design.option("base_samples"), d, design.option("second_order")) * sampled.conditions(design)
+
+
 def describe(design: Design) -> dict[str, Any]:
     """Kind, names, distributions, and what SALib's analysis needs to pair the samples."""
     drawn = design.option("margins")

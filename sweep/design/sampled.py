@@ -15,10 +15,12 @@ Points are condition-major: all n sampled points at the first condition, then at
 from __future__ import annotations
 
 import itertools
+import math
 from typing import Any, Mapping
 
 import numpy as np
 
+from sweep import limits
 from sweep.design import Design, levels, margins
 from sweep.errors import SpecError
 
@@ -59,11 +61,19 @@ def count(table: Mapping[str, Any], key: str, source: str, power_of_two: bool = 
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
         raise SpecError(source, f"design.{key}", "missing" if value is None else "must be a whole number >= 1",
                         value if value is not None else ..., f"add {key} = <whole number> under [design]")
+    if value > limits.MAX_POINTS:
+        raise SpecError(source, f"design.{key}", f"more than the {limits.MAX_POINTS:,} points a sweep can hold",
+                        value, f"use at most {limits.MAX_POINTS:,}")
     if power_of_two and value & (value - 1):
         below = 1 << (value.bit_length() - 1)
         raise SpecError(source, f"design.{key}", "must be a power of two (Sobol points are balanced only then)",
                         value, f"use {below} or {below * 2}")
     return value
+
+
+def conditions(design: Design) -> int:
+    """How many condition levels the sample is repeated at (1 without conditions)."""
+    return math.prod(len(v) for _, v in design.option("conditions", ()))
 
 
 def names(drawn, conditions) -> tuple[str, ...]:

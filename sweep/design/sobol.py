@@ -46,6 +46,11 @@ def expand(design: Design, seed: int) -> np.ndarray:
     return sampled.cross(design, sampler.random(design.option("points")))
 
 
+def size(design: Design) -> int:
+    """The number of points times the number of conditions."""
+    return design.option("points") * sampled.conditions(design)
+
+
 def describe(design: Design) -> dict[str, Any]:
     """Kind, names, distributions and sample size."""
     return sampled.describe(design, points_per_condition=design.option("points"))

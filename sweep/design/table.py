@@ -26,6 +26,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from sweep import inputs, limits
 from sweep.design import Design, levels
 from sweep.errors import SpecError
 
@@ -47,10 +48,8 @@ def parse(table: Mapping[str, Any], known: Mapping[str, float], source: str) -> 
         raise SpecError(source, "design.file", "missing" if name is None else "must be a file name",
                         name if name is not None else ..., 'add file = "points.csv" under [design]')
     path = Path(source).parent / name
-    try:
-        data = path.read_bytes()
-    except OSError as exc:
-        raise SpecError(source, "design.file", f"cannot read {path}: {exc.strerror or exc}", name) from exc
+    inputs.check_path(path, source, "design.file")
+    data = inputs.read_bytes(path, source, "design.file", limits.MAX_FILE_BYTES)
     header, rows = _read_csv(data, path, source)
     columns = _columns(table, header, known, path, source)
     values = tuple(tuple(row[i] for _, i in columns) for row in rows)
@@ -67,6 +66,9 @@ def _read_csv(data: bytes, path: Path, source: str) -> tuple[list[str], list[tup
     if len(lines) < 2:
         raise SpecError(source, "design.file", f"{path} needs a header row and at least one row of values",
                         path.name)
+    if len(lines) - 1 > limits.MAX_POINTS:
+        raise SpecError(source, "design.file", f"{path} has {len(lines) - 1:,} rows, more than the "
+                        f"{limits.MAX_POINTS:,} points a sweep can hold", path.name, "split it into several sweeps")
     parsed = list(csv.reader([line for _, line in lines]))
     header = [h.strip() for h in parsed[0]]
     for h in header:
@@ -121,6 +123,11 @@ def expand(design: Design, seed: int = 0) -> np.ndarray:
     """The rows of the file, in file order. Ignores ``seed``."""
     values = design.option("values", ())
     return np.array(values, dtype=np.float64).reshape(len(values), len(design.names))
+
+
+def size(design: Design) -> int:
+    """The number of rows in the file."""
+    return len(design.option("values", ()))
 
 
 def describe(design: Design) -> dict[str, Any]:

@@ -16,9 +16,29 @@ from __future__ import annotations
 import math
 from typing import Callable, Mapping
 
+from sweep import limits
+
 AVOGADRO = 6.02214076e23  # exact since the 2019 SI redefinition (BIPM 2019)
 
-_MAX_DEPTH = 200
+_MAX_DEPTH = limits.MAX_EXPRESSION_DEPTH
+_MAX_NODES = limits.MAX_EXPRESSION_NODES
+
+
+class _TooLarge(Exception):
+    """The tree being built passed ``_MAX_NODES`` nodes (function definitions inline into it)."""
+
+
+class _Budget:
+    """Nodes left to build in one expression; inlining a chain of functions that each call the
+    previous twice would otherwise build 2^n nodes before anything could refuse it."""
+
+    def __init__(self, nodes: int):
+        self.left = nodes
+
+    def take(self) -> None:
+        self.left -= 1
+        if self.left < 0:
+            raise _TooLarge
 
 
 class Unsupported(Exception):
@@ -59,21 +79,32 @@ def from_ast(node, env: Mapping[str, tuple], functions: Mapping[str, object], pr
     ('*', ('name', 'k'), ('name', 'A'))
     """
     found: list[str] = []
-    tree = _walk(node, env, functions, found, 0)
+    try:
+        tree = _walk(node, env, functions, found, 0, _Budget(_MAX_NODES))
+        size, depth = _measure(tree)
+    except _TooLarge:
+        size, depth = _MAX_NODES + 1, 0
+    if size > _MAX_NODES or depth > _MAX_DEPTH:
+        what = (f"more than {_MAX_NODES:,} operations" if size > _MAX_NODES
+                else f"nested more than {_MAX_DEPTH} levels deep (a sum of n terms is n levels)")
+        problems.append(f"{where}: {what} once its function definitions are inlined (each call is replaced "
+                        "by the function's body); write the math out smaller")
+        return None
     for what in dict.fromkeys(found):
         problems.append(f"{where}: {what}")
     return None if found else tree
 
 
-def _walk(node, env, functions, found: list[str], depth: int) -> tuple:
+def _walk(node, env, functions, found: list[str], depth: int, budget: _Budget) -> tuple:
     import libsbml
 
     if node is None:
         found.append("missing math")
         return ("num", 0.0)
     if depth > _MAX_DEPTH:
-        found.append("math nested too deeply")
+        found.append(f"math nested more than {_MAX_DEPTH} levels deep")
         return ("num", 0.0)
+    budget.take()
     t = node.getType()
     if t in _NUMBER_TYPES():
         return _number(node, found)
@@ -82,13 +113,47 @@ def _walk(node, env, functions, found: list[str], depth: int) -> tuple:
         return env.get(name, ("name", name))
     simple = _SIMPLE().get(t)
     if simple is not None:
-        kids = [_walk(node.getChild(i), env, functions, found, depth + 1) for i in range(node.getNumChildren())]
+        kids = [_walk(node.getChild(i), env, functions, found, depth + 1, budget)
+                for i in range(node.getNumChildren())]
         return simple(kids, found)
     if t == libsbml.AST_FUNCTION:
-        return _inline(node, env, functions, found, depth)
+        return _inline(node, env, functions, found, depth, budget)
     # the outermost unsupported construct is named; what is inside it does not matter
     found.append(_describe(node))
     return ("num", 0.0)
+
+
+def _measure(tree: tuple) -> tuple[int, int]:
+    """(nodes, depth) of a tree once written out.
+
+    Inlined arguments are shared, not copied, so a tree can stand for far more nodes than were
+    built (``g(g(g(A)))`` with ``g(x) = x + x``): sizes are counted per distinct subtree, without
+    recursion, and the walk stops as soon as the size passes ``_MAX_NODES``.
+    """
+    known: dict[int, tuple[int, int]] = {}
+    stack = [tree]
+    while stack:
+        node = stack[-1]
+        if id(node) in known:
+            stack.pop()
+            continue
+        kids = _children(node)
+        missing = [k for k in kids if id(k) not in known]
+        if missing:
+            stack.extend(missing)
+            continue
+        stack.pop()
+        size = 1 + sum(known[id(k)][0] for k in kids)
+        if size > _MAX_NODES:
+            raise _TooLarge
+        known[id(node)] = (size, 1 + max((known[id(k)][1] for k in kids), default=0))
+    return known[id(tree)]
+
+
+def _children(node: tuple) -> tuple:
+    if node[0] in ("num", "name"):
+        return ()
+    return node[2] if node[0] == "call" else node[1:]
 
 
 def _number(node, found: list[str]) -> tuple:
@@ -218,7 +283,7 @@ def _NUMBER_TYPES() -> frozenset:  # noqa: N802
     return _TABLES["numbers"]
 
 
-def _inline(node, env, functions, found: list[str], depth: int) -> tuple:
+def _inline(node, env, functions, found: list[str], depth: int, budget: _Budget) -> tuple:
     """Replace a call of a function definition by its body with the arguments substituted."""
     name = node.getName()
     definition = functions.get(name)
@@ -229,11 +294,11 @@ def _inline(node, env, functions, found: list[str], depth: int) -> tuple:
     if node.getNumChildren() != n_args:
         found.append(f"call of {name!r} with {node.getNumChildren()} arguments (it takes {n_args})")
         return ("num", 0.0)
-    args = [_walk(node.getChild(i), env, functions, found, depth + 1) for i in range(n_args)]
+    args = [_walk(node.getChild(i), env, functions, found, depth + 1, budget) for i in range(n_args)]
     bound = {definition.getArgument(i).getName(): arg for i, arg in enumerate(args)}
     # a function body sees only its own arguments (SBML L3V2 section 4.3.2); any other name in it
     # is an error, reported rather than resolved against the model
-    return _walk(definition.getBody(), _Strict(bound, name, found), functions, found, depth + 1)
+    return _walk(definition.getBody(), _Strict(bound, name, found), functions, found, depth + 1, budget)
 
 
 class _Strict(dict):

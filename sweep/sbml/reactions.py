@@ -21,6 +21,7 @@ import math
 from typing import Any, Mapping
 
 from sweep import expr as expressions
+from sweep import limits
 from sweep.sbml import laws
 from sweep.sbml.math import from_ast, render
 
@@ -38,8 +39,7 @@ def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
     if reactants is None or products is None or tree is None:
         return {}
     formula = _formula(reaction)
-    species = set(ctx.species)
-    beta = {s: info.beta for s, info in ctx.species.items()}
+    species, beta = ctx.species_ids, ctx.beta
     if reaction.getReversible() and not _subtracts(tree):
         ctx.notes.append((where, "declared reversible, but its law has no backward term: it runs forward only"))
     ma = laws.mass_action(tree, reactants, species, beta, ctx.alpha_e)
@@ -76,9 +76,9 @@ def _side(ctx, refs, where: str, role: str) -> dict[str, int] | None:
             ok = False
             continue
         value = ref.getStoichiometry()
-        if not math.isfinite(value) or value != int(value) or value < 1:
-            ctx.problems.append(f"{where}: {role} {sid} has stoichiometry {value:g}; only whole numbers >= 1 "
-                                "describe molecules")
+        if not math.isfinite(value) or value != int(value) or value < 1 or value > limits.MAX_STOICHIOMETRY:
+            ctx.problems.append(f"{where}: {role} {sid} has stoichiometry {value:g}; only whole numbers from 1 to "
+                                f"{limits.MAX_STOICHIOMETRY:,} describe molecules")
             ok = False
             continue
         if sid not in ctx.species:
@@ -108,14 +108,15 @@ def _law(ctx, reaction, where: str) -> tuple | None:
     tree = from_ast(law.getMath(), env, ctx.functions, ctx.problems, f"{where} kinetic law")
     if tree is None:
         return None
-    known = set(ctx.species) | set(ctx.values) | set(ctx.derived)
-    all_species = {s.getId() for s in ctx.model.getListOfSpecies()}
-    unknown = laws.names(tree) - known - all_species
+    # membership tests, not set unions: building the sets for every reaction made import O(R x S)
+    used = laws.names(tree)
+    unknown = {n for n in used if n not in ctx.species and n not in ctx.values and n not in ctx.derived
+               and n not in ctx.all_species}
     if unknown:
         ctx.problems.append(f"{where} kinetic law: reads {', '.join(sorted(unknown))}, which is not a species, "
                             "parameter or compartment (species references' ids are not supported in math)")
         return None
-    if laws.names(tree) & (all_species - set(ctx.species)):
+    if any(n in ctx.all_species and n not in ctx.species for n in used):
         return None  # a species with its own problem
     return tree
 
@@ -149,8 +150,7 @@ def _split(ctx, rid: str, tree: tuple, reactants, products, formula: str) -> dic
     parts = laws.difference(tree)
     if parts is None:
         return None
-    species = set(ctx.species)
-    beta = {s: info.beta for s, info in ctx.species.items()}
+    species, beta = ctx.species_ids, ctx.beta
     forward = laws.mass_action(parts[0], reactants, species, beta, ctx.alpha_e)
     backward = laws.mass_action(parts[1], products, species, beta, ctx.alpha_e)
     if forward is None or backward is None:

@@ -21,13 +21,13 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from sweep import expr as expressions
+from sweep import inputs
 from sweep.errors import SpecError
 from sweep.sbml import laws
 from sweep.sbml.math import AVOGADRO, from_ast, render
 from sweep.sbml.reactions import convert
 from sweep.sbml.units import molecules_per
 
-MAX_COUNT = 2**31 - 1  # counts are int32 in the kernels
 
 
 @dataclass(frozen=True)
@@ -76,6 +76,10 @@ class _Context:
     derived: dict = field(default_factory=dict)
     aliases: dict = field(default_factory=dict)
     alpha_e: float = 1.0
+    # built once, before the reactions (per reaction they made the import O(R x S))
+    all_species: frozenset = frozenset()                # every species id in the document
+    species_ids: frozenset = frozenset()                # the species that were read (ctx.species)
+    beta: dict = field(default_factory=dict)            # species -> molecules per unit in math
 
     def fresh(self, base: str) -> str:
         """A model name not used by the document or by another generated name."""
@@ -111,6 +115,7 @@ def read(text: str, source: str) -> Imported:
     ['parameters', 'reactions', 'species']
     """
     ctx = _Context(source)
+    inputs.check_xml(text, source)  # nesting and size, before libsbml (which crashes on deep nesting)
     ctx.model, ctx.converted = _document(text, source)
     model = ctx.model
     _unsupported_elements(ctx)
@@ -124,6 +129,9 @@ def read(text: str, source: str) -> Imported:
     _extent(ctx)
     ctx.values.update({p.getId(): p.getValue() for p in model.getListOfParameters() if p.isSetValue()})
     initial = _species(ctx)
+    ctx.all_species = frozenset(s.getId() for s in model.getListOfSpecies())
+    ctx.species_ids = frozenset(ctx.species)
+    ctx.beta = {s: info.beta for s, info in ctx.species.items()}
     _initial_assignments(ctx, initial)
     for p in model.getListOfParameters():
         if not p.isSetValue() and p.getId() not in ctx.derived:
@@ -292,8 +300,9 @@ def _count(ctx: _Context, s, sid: str, alpha: float, size: float, unit: str, rea
     else:
         ctx.problems.append(f"species {sid}: no initialAmount, initialConcentration or initial assignment")
         return 0
-    if not math.isfinite(value) or value < 0 or value > MAX_COUNT:
-        ctx.problems.append(f"species {sid}: initial count {value:g} ({how}) is not between 0 and {MAX_COUNT}")
+    # the cap of the integer-state methods (int32) is the spec's to apply: it depends on the method
+    if not math.isfinite(value) or value < 0:
+        ctx.problems.append(f"species {sid}: initial count {value:g} ({how}) is not a finite number >= 0")
         return 0
     count = math.floor(value + 0.5)
     shown = f"{value:.10g}" if count == value else f"{value:.10g}, rounded to {count}"
@@ -304,6 +313,7 @@ def _count(ctx: _Context, s, sid: str, alpha: float, size: float, unit: str, rea
 def _initial_assignments(ctx: _Context, initial: dict[str, Any]) -> None:
     """Initial assignments to parameters and species become derived parameters."""
     env = {c: ("num", v) for c, v in ctx.compartments.items()}
+    parameters = {p.getId() for p in ctx.model.getListOfParameters()}
     pending = []
     for a in ctx.model.getListOfInitialAssignments():
         symbol = a.getSymbol()
@@ -315,7 +325,7 @@ def _initial_assignments(ctx: _Context, initial: dict[str, Any]) -> None:
         tree = from_ast(a.getMath(), env, ctx.functions, ctx.problems, where)
         if tree is None:
             continue
-        unknown = laws.names(tree) - {p.getId() for p in ctx.model.getListOfParameters()}
+        unknown = laws.names(tree) - parameters
         if unknown:
             ctx.problems.append(f"{where}: may use only parameters and numbers, not {', '.join(sorted(unknown))}")
             continue

@@ -41,7 +41,9 @@ def test_fresh_needs_confirmation_without_a_terminal(tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     runner.invoke(app, ["init", "."])
     spec = tmp_path / "spec.toml"
-    spec.write_text(spec.read_text().replace("replicates = 200", "replicates = 2"))
+    # replicates_per_task may not exceed replicates (sweep.limits.check_sweep), so both shrink
+    spec.write_text(spec.read_text().replace("replicates = 200", "replicates = 2")
+                    .replace("replicates_per_task = 100", "replicates_per_task = 2"))
     assert runner.invoke(app, ["run", "spec.toml", "--workers", "1"]).exit_code == 0
     result = runner.invoke(app, ["run", "spec.toml", "--workers", "1", "--fresh"])
     assert result.exit_code == 2 and "--yes" in result.output

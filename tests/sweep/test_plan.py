@@ -127,8 +127,9 @@ def test_huge_design_is_refused_without_yes(spec_file):
 
 
 def test_terabyte_store_is_refused(spec_file):
+    # tasks of 100 replicates keep each chunk (200 MB) within sweep.limits.MAX_CHUNK_BYTES
     path = spec_file(GRID.replace("replicates = 40\nreplicates_per_task = 10",
-                                  "replicates = 100_000\nreplicates_per_task = 10_000")
+                                  "replicates = 100_000\nreplicates_per_task = 100")
                      .replace("samples = 21", "samples = 500_000"))
     result = runner.invoke(app, ["plan", str(path)])
     assert result.exit_code == 2 and "TB of raw results" in " ".join(result.output.split()), result.output
