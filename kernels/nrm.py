@@ -268,9 +268,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
             status = STATUS_EVENT_CAP
             break
         mu = hr[0]
-        if not a[mu] < _INF:
-            status = STATUS_NUMERICAL  # infinitely fast (or NaN): its firing time means nothing
-            break
+        fired = a[mu]  # the propensity mu fires with; infinite or NaN is a failure, checked below
         b = np.uint64(prog[mu])
         q = b + _U2
         end = q + _U2 * np.uint64(prog[b])
@@ -315,6 +313,8 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         # mu is still the root: a dependent's new time is >= t and moves up only past a strictly
         # larger one
         _sift_down(ht, hr, pos, _U0, _bits(key), mu)
+        if not fired < _INF:
+            status = STATUS_NUMERICAL  # infinitely fast (or NaN): its firing time means nothing
         if log_t is not None and n_ev < log_cap:
             log_t[n_ev] = t
             log_r[n_ev] = mu
