@@ -13,7 +13,7 @@ from sweep import load
 from sweep.cli.common import console, exits_on_errors, shown
 from sweep.errors import SpecError
 from sweep.model import describe
-from sweep.tasks import make_tasks
+from sweep.tasks import n_blocks
 
 _TEMPLATES = ("spec.toml", "model.toml")
 
@@ -52,7 +52,7 @@ def check(
     for row in describe(model):
         reactions.add_row(*map(shown, row))
     species = ", ".join(f"{s}={v}" for s, v in zip(model.species, model.initial))
-    tasks = make_tasks(points.shape[0], spec.replicates, spec.replicates_per_task)
+    tasks = points.shape[0] * n_blocks(spec.replicates, spec.replicates_per_task)  # counted, not listed
     console.print(f"[green]ok[/] {shown(spec_path)}  (SHA-256 {spec.sha256[:12]})")
     console.print(f"species: {shown(species)}")
     if model.omega is not None:
@@ -76,7 +76,7 @@ def check(
     n_t = len(spec.times)
     console.print(
         f"{points.shape[0]:,} points x {spec.replicates:,} replicates = {points.shape[0] * spec.replicates:,} "
-        f"trajectories in {len(tasks):,} tasks of up to {spec.replicates_per_task:,} replicates\n"
+        f"trajectories in {tasks:,} tasks of up to {spec.replicates_per_task:,} replicates\n"
         f"method {spec.method}, {n_t} samples from t={spec.times[0]:g} to t={spec.times[-1]:g}, "
         f"root seed {spec.seed}, event cap {spec.max_events:,}\n"
         f"store {shown(spec.store)}", highlight=False,

@@ -257,9 +257,6 @@ def test_10_infinite_propensity_is_status_2_in_the_store(tmp_path):
     assert (counts[status == 2] == -1).all() and (counts[status == 0] >= 0).all()
 
 
-@pytest.mark.xfail(strict=True, reason="sweep/store.py (not this branch): write_block reopens the arrays without "
-                   "write_empty_chunks, so a chunk that is all -1 is not written and its fsync raises "
-                   "FileNotFoundError; see NOTES-hostile-input.md")
 def test_10_task_whose_every_replicate_fails_is_recorded(tmp_path):
     model = ('[species]\nA = 5\n[parameters]\nk = 1.0\n[reactions]\n'
              'out = { reaction = "A -> 0", propensity = "k / (A - A)" }\n')
@@ -354,8 +351,6 @@ def test_run_refuses_before_creating_a_store(tmp_path, monkeypatch, item):
     assert not list(tmp_path.glob("*.zarr"))
 
 
-@pytest.mark.xfail(strict=True, reason="sweep/cli/common.py (not this branch) prints error messages as rich markup: "
-                   "'P[/]' raises MarkupError and '[species]' vanishes; see NOTES-hostile-input.md")
 def test_markup_in_a_name_is_printed_verbatim(tmp_path):
     out = refused(write(tmp_path, model=MODEL.replace("P = 5", '"P[/]" = 5')), "species.P[/]", "identifiers")
     out = refused(write(tmp_path, model=MODEL.replace("P = 5", '"[species]" = 5')), "species.[species]")
