@@ -30,7 +30,7 @@ Propensities are the mass-action combinations of ``kernels.direct.propensity``, 
 packed program (``kernels.direct._program``), built from a dependency graph without self-loops: the
 fired reaction is always updated on its own path, so the dependents' loop needs no ``d == mu`` test.
 
-Speed (see ``sweep.bench``; 100-reaction chain): the time per event is a serial chain of a few
+Speed (see ``sweep.plan.bench``; 100-reaction chain): the time per event is a serial chain of a few
 dependent heap updates and one sift from the root, so the heap holds firing times as the int64 bit
 patterns of the doubles (an integer compare is shorter on that chain), picks the smaller child
 without a branch, and the unit exponential is drawn by a ziggurat one event ahead of its use.

@@ -14,90 +14,51 @@ handling before it pays for them (``sweep.cli.main``).
 
 from __future__ import annotations
 
-import importlib
-import sys
-from types import ModuleType
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
-# public name -> (module, name in that module)
-_EXPORTS: dict[str, tuple[str, str]] = {
-    "AnalysisOptions": ("sweep.analysis.options", "AnalysisOptions"),
-    "Threshold": ("sweep.analysis.options", "Threshold"),
-    "AnalysisResult": ("sweep.analysis.report", "AnalysisResult"),
-    "analyze": ("sweep.analysis.report", "analyze"),
-    "open_analysis": ("sweep.analysis.report", "open_analysis"),
-    "KernelError": ("sweep.errors", "KernelError"),
-    "SpecError": ("sweep.errors", "SpecError"),
-    "StoreError": ("sweep.errors", "StoreError"),
-    "SweepError": ("sweep.errors", "SweepError"),
-    "ExportSummary": ("sweep.export", "ExportSummary"),
-    "export": ("sweep.export", "export"),
-    "Execution": ("sweep.execute.execution", "Execution"),
-    "Progress": ("sweep.execute.loop", "Progress"),
-    "RunSummary": ("sweep.execute.run", "RunSummary"),
-    "Started": ("sweep.execute.run", "Started"),
-    "run": ("sweep.execute.run", "run"),
-    "ShardSummary": ("sweep.execute.run", "ShardSummary"),
-    "run_shard": ("sweep.execute.run", "run_shard"),
-    "Spec": ("sweep.spec", "Spec"),
-    "load": ("sweep.spec", "load"),
-    "open_results": ("sweep.store", "open_dataset"),
-    "StoreStatus": ("sweep.status", "StoreStatus"),
-    "status": ("sweep.status", "status"),
-    "verify": ("sweep.status", "verify"),
-    "ReplicateTrace": ("sweep.trace", "ReplicateTrace"),
-    "trace": ("sweep.trace", "trace"),
+from sweep import lazy
+
+# public name -> its module ("module:name" where the name there differs)
+_NAMES = {
+    "AnalysisOptions": "sweep.analysis.options",
+    "Threshold": "sweep.analysis.options",
+    "AnalysisResult": "sweep.analysis.report",
+    "analyze": "sweep.analysis.report",
+    "open_analysis": "sweep.analysis.report",
+    "KernelError": "sweep.errors",
+    "SpecError": "sweep.errors",
+    "StoreError": "sweep.errors",
+    "SweepError": "sweep.errors",
+    "ExportSummary": "sweep.store.export",
+    "export": "sweep.store.export",
+    "Execution": "sweep.execute.execution",
+    "Progress": "sweep.execute.loop",
+    "RunSummary": "sweep.execute.run",
+    "Started": "sweep.execute.run",
+    "run": "sweep.execute.run",
+    "ShardSummary": "sweep.execute.run",
+    "run_shard": "sweep.execute.run",
+    "Spec": "sweep.spec",
+    "load": "sweep.spec",
+    "open_results": "sweep.store.layout:open_dataset",
+    "StoreStatus": "sweep.store.status",
+    "status": "sweep.store.status",
+    "verify": "sweep.store.status",
+    "ReplicateTrace": "sweep.execute.trace",
+    "trace": "sweep.execute.trace",
 }
-
-__all__ = [
-    "AnalysisOptions", "AnalysisResult", "ExportSummary", "Threshold", "analyze", "export", "open_analysis",
-    "KernelError", "Progress", "RunSummary", "Spec", "SpecError", "Started", "StoreError",
-    "ReplicateTrace", "StoreStatus", "SweepError", "load", "open_results", "run", "status", "trace", "verify",
-    "ShardSummary", "run_shard", "Execution",
-]
+__all__ = sorted(_NAMES)
+__getattr__, __dir__ = lazy.exports(__name__, _NAMES)
 
 if TYPE_CHECKING:  # what type checkers and IDEs see; at run time these come from __getattr__
     from sweep.analysis.options import AnalysisOptions, Threshold
     from sweep.analysis.report import AnalysisResult, analyze, open_analysis
     from sweep.errors import KernelError, SpecError, StoreError, SweepError
-    from sweep.export import ExportSummary, export
+    from sweep.store.export import ExportSummary, export
     from sweep.execute.execution import Execution
     from sweep.execute.loop import Progress
     from sweep.execute.run import RunSummary, ShardSummary, Started, run, run_shard
     from sweep.spec import Spec, load
-    from sweep.status import StoreStatus, status, verify
+    from sweep.store.status import StoreStatus, status, verify
     from sweep.store import open_dataset as open_results
-    from sweep.trace import ReplicateTrace, trace
-
-
-def __getattr__(name: str) -> Any:
-    try:
-        module, attr = _EXPORTS[name]
-    except KeyError:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
-    value = getattr(importlib.import_module(module), attr)
-    globals()[name] = value  # later look-ups find it without coming here
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(__all__))
-
-
-class _Package(ModuleType):
-    """Keeps ``sweep.status``, ``sweep.export`` and ``sweep.trace`` the functions.
-
-    Importing a submodule sets an attribute of that name on its package; three submodules
-    share their name with the function they define (``sweep.status.status``). Imported
-    eagerly, the package bound the functions after their modules; imported lazily, the
-    module would win whenever someone imported it first (``from sweep.status import verify``).
-    """
-
-    def __setattr__(self, name: str, value: Any) -> None:
-        if name in _EXPORTS and isinstance(value, ModuleType):
-            return  # the name resolves to the function through __getattr__
-        super().__setattr__(name, value)
-
-
-# the documented way to customise a module's attribute setting (Python data model, "Customizing module attribute access")
-sys.modules[__name__].__class__ = _Package
+    from sweep.execute.trace import ReplicateTrace, trace

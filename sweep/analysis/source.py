@@ -15,7 +15,9 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
-from sweep import claims, lock, store
+from sweep import store
+
+from sweep.store import claims, lock
 from sweep.errors import SpecError, StoreError
 
 GROUP = "analysis"
@@ -145,8 +147,7 @@ def check_writable(path: Path) -> None:
         A lock whose holder is alive, or on another host where it cannot be checked; or a
         symlink inside the store (the analysis would be written where it leads).
     """
-    from sweep import integrity
-
+    from sweep.store import integrity
     integrity.refuse_symlinks(path)
     running = [c for c in claims.list_claims(path) if c.live is not False]
     if running:

@@ -2,7 +2,7 @@
 
 Exit codes: 0 ok, 1 some tasks failed or the store could not be written, 2 bad input (spec,
 model, store or options), 130 interrupted by Ctrl-C; a shard (``run --shard``) also 75 (stopped
-before its time limit, see ``sweep.walltime``) and 143 (SIGTERM).
+before its time limit, see ``sweep.batch.walltime``) and 143 (SIGTERM).
 
 Ctrl-C ends the program with status 130 and one line on stderr at any moment, never with a
 traceback. Importing this package is cheap: ``main`` takes over SIGINT before it imports and

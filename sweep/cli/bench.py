@@ -9,7 +9,7 @@ from typing import Annotated
 import typer
 from rich.table import Table
 
-from sweep.bench import NETWORKS, measure, measure_spec
+from sweep.plan.bench import NETWORKS, measure, measure_spec
 from sweep.cli.common import console, exits_on_errors, si
 
 Network = StrEnum("Network", {name: name for name in NETWORKS})

@@ -8,7 +8,7 @@ from typing import Any
 
 import typer
 
-from sweep import cluster as clusters
+from sweep.batch import settings as clusters
 from sweep.cli.common import console, errors, shown
 from sweep.spec import Spec
 

@@ -200,7 +200,7 @@ def at_time(t: float, unit: str | None) -> str:
 def lost_lines(lost, points: int, max_events: int | None, limit: int = 12) -> list[str]:
     """What a person needs about replicates lost to the event cap or to numerical failures.
 
-    ``lost`` holds ``sweep.status.LostReplicates``, fewest finished first. Plain text (not markup).
+    ``lost`` holds ``sweep.store.status.LostReplicates``, fewest finished first. Plain text (not markup).
     """
     if not lost:
         return []

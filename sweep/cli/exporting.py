@@ -34,7 +34,7 @@ def export(
     Table columns: point, the varied parameters, replicate, status, time, species, count.
     Written chunk by chunk, so a store larger than memory exports.
     """
-    from sweep.export import export as run_export
+    from sweep.store.export import export as run_export
 
     if output is not None and old_output is not None and output != old_output:
         raise SpecError("sweep export", "--output", "given twice, as --output and as a second argument",

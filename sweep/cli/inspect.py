@@ -10,12 +10,12 @@ from rich.table import Table
 
 import sweep
 from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, lost_lines, shown, store_path
-from sweep.status import verify as verify_store
+from sweep.store.status import verify as verify_store
 
 
 def _adaptive_rows(table: Table, st: sweep.StoreStatus) -> None:
-    """Why points stopped adding replicates (``sweep.adaptive``)."""
-    from sweep.adaptive import describe_states
+    """Why points stopped adding replicates (``sweep.execute.adaptive``)."""
+    from sweep.execute.adaptive import describe_states
 
     summary = st.adaptive
     table.add_row("adaptive target", shown(summary.get("description", "")))

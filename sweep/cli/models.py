@@ -26,7 +26,7 @@ def export_model(
     From a spec, parameters take the spec's fixed values from its \\[parameters] table,
     varied ones keep the model's own value, and derived parameters become initial assignments.
     """
-    from sweep import sbml
+    from sweep.model import sbml
     from sweep.spec import load_model
 
     out = output or old_out

@@ -66,8 +66,7 @@ def plan(
 def _compare(spec, seconds: float) -> None:
     """`--compare-methods`: the spec's approximate method against the exact direct method."""
     import kernels
-    from sweep import compare
-
+    from sweep.plan import compare
     if spec.method not in ("tau_leap", "cle", "ode"):
         console.print(f"--compare-methods: method {shown(spec.method)} is exact already; nothing to compare")
         return

@@ -165,8 +165,8 @@ def _check_results(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
 
 
 def _adaptive_rows(table: Table, outcome) -> None:
-    """The target and why points stopped adding replicates (``sweep.adaptive.Outcome``)."""
-    from sweep.adaptive import describe_states
+    """The target and why points stopped adding replicates (``sweep.execute.adaptive.Outcome``)."""
+    from sweep.execute.adaptive import describe_states
 
     summary = outcome.summary()
     table.add_row("adaptive target", summary["description"])

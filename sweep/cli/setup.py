@@ -13,7 +13,7 @@ from sweep import load
 from sweep.cli.common import console, exits_on_errors, shown
 from sweep.errors import SpecError
 from sweep.model import describe
-from sweep.tasks import n_blocks
+from sweep.execute.tasks import n_blocks
 
 _TEMPLATES = ("spec.toml", "model.toml")
 

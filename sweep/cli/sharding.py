@@ -13,7 +13,7 @@ from pathlib import Path
 import typer
 
 import sweep
-from sweep import walltime
+from sweep.batch import walltime
 from sweep.execute.execution import parse_shard
 from sweep.cli.common import EXIT_BAD_INPUT, EXIT_FAILED_TASKS, console, duration, errors, shown, si
 

@@ -11,8 +11,8 @@ from typing import Annotated
 import typer
 
 import sweep
-from sweep import cluster as clusters
-from sweep import submit as submit_mod
+from sweep.batch import settings as clusters
+from sweep.batch import submit as submit_mod
 from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, shown
 
 

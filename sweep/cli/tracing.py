@@ -12,7 +12,7 @@ from rich.table import Table
 from sweep.cli.common import (EXIT_FAILED_TASKS, POINT_FORMS, console, errors, exits_on_errors, expand_points,
                               parse_points, shown, store_path)
 from sweep.errors import SpecError
-from sweep.trace import trace as trace_replicate
+from sweep.execute.trace import trace as trace_replicate
 
 _STATUS = {0: "finished", 1: "stopped at the event cap", 2: "numerical failure"}
 

@@ -7,7 +7,7 @@
 - ``describe(design) -> dict`` gives JSON-ready facts (kind, names, per-parameter ranges and
   what an analysis needs later, e.g. Saltelli's N and D); the store keeps them.
 - ``size(design) -> int`` gives the number of points ``expand`` would give, computed without
-  expanding, so a spec asking for too many (``sweep.limits.MAX_POINTS``) is refused first.
+  expanding, so a spec asking for too many (``sweep.spec.limits.MAX_POINTS``) is refused first.
 
 Same design and seed, same points in the same order: resume and per-point seeds depend on it.
 

@@ -16,7 +16,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from sweep import limits
+from sweep.spec import limits
 from sweep.errors import SpecError
 
 SPACINGS = ("linear", "log")

@@ -20,7 +20,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from sweep import limits
+from sweep.spec import limits
 from sweep.design import Design, levels, margins
 from sweep.errors import SpecError
 

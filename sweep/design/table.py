@@ -26,7 +26,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from sweep import inputs, limits
+from sweep.spec import inputs, limits
 from sweep.design import Design, levels
 from sweep.errors import SpecError
 

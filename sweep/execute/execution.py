@@ -11,7 +11,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from sweep.cluster import ClusterConfig
+    from sweep.batch.settings import ClusterConfig
 
 PACK_SECONDS = 0.2  # a task should be worth at least this much kernel time (small points are packed)
 

@@ -1,8 +1,8 @@
 """This process as the pool: tasks run one at a time, here, with no Dask (``sweep run --shard``).
 
 A shard of a job array runs this way: nothing listens on the network, and the walltime check
-before each task (``sweep.walltime.Budget``) sees one task at a time. The kernels, seeds and
-writes are a Dask worker's own (``sweep.worker.run_task``), so the bytes are those of any run.
+before each task (``sweep.batch.walltime.Budget``) sees one task at a time. The kernels, seeds and
+writes are a Dask worker's own (``sweep.execute.worker.run_task``), so the bytes are those of any run.
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ if TYPE_CHECKING:
     from pathlib import Path
 
     from sweep.execute.execution import Execution
-    from sweep.worker import TaskInput, TaskResult
+    from sweep.execute.worker import TaskInput, TaskResult
 
 
 class SerialPool:
@@ -31,7 +31,7 @@ class SerialPool:
         self._queue: deque[TaskInput] = deque()
 
     def warm(self, task: TaskInput) -> None:
-        from sweep.worker import warm_up
+        from sweep.execute.worker import warm_up
 
         warm_up(task)
 
@@ -39,7 +39,7 @@ class SerialPool:
         self._queue.extend(tasks)
 
     def next(self) -> tuple[TaskInput, TaskResult | BaseException]:
-        from sweep.worker import run_task
+        from sweep.execute.worker import run_task
 
         task = self._queue.popleft()
         try:

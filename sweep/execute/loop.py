@@ -3,7 +3,7 @@
 Every route runs through ``drive``: a local Dask cluster, an existing scheduler, Dask
 workers as Slurm jobs, and in-process shards. What differs is given to it: the pool that runs
 tasks (``sweep.execute.pool``), the completion record it marks (the whole run's ``done``, or a
-shard's own records; ``sweep.session``), the schedule of blocks (every block not done, or the
+shard's own records; ``sweep.execute.session``), the schedule of blocks (every block not done, or the
 adaptive rounds), and for shards a walltime budget.
 
 What happens at each fault:
@@ -31,9 +31,9 @@ import numpy as np
 
 if TYPE_CHECKING:
     from sweep.execute.pool import Pool
-    from sweep.tasks import Packer, Task
-    from sweep.walltime import Budget
-    from sweep.worker import TaskInput, TaskResult
+    from sweep.execute.tasks import Packer, Task
+    from sweep.batch.walltime import Budget
+    from sweep.execute.worker import TaskInput, TaskResult
 
 TASK_RETRIES = 2
 DISK_ERRNOS = {errno.ENOSPC, errno.EROFS, errno.EDQUOT, errno.EIO, errno.EACCES, errno.EPERM}
@@ -102,7 +102,7 @@ def drive(pool: Pool, schedule: Schedule, make_input: Callable[[list[Task]], Tas
 
     ``schedule(done, failed)`` gives the blocks to run from the completion record and the
     (point, block) pairs that failed in this run; it is asked first, then again whenever
-    nothing is in flight, until it returns none (``sweep.adaptive``'s rounds).
+    nothing is in flight, until it returns none (``sweep.execute.adaptive``'s rounds).
     """
     tally = Tally()
     attempts: dict[tuple[int, int], int] = {}

@@ -17,7 +17,7 @@ from typing import TYPE_CHECKING, Protocol
 if TYPE_CHECKING:
     from distributed import Client
 
-    from sweep.worker import TaskInput, TaskResult
+    from sweep.execute.worker import TaskInput, TaskResult
 
 
 @dataclass(frozen=True)
@@ -66,12 +66,12 @@ class DaskPool:
         self._owner: dict[str, TaskInput] = {}
 
     def warm(self, task: TaskInput) -> None:
-        from sweep.worker import warm_up
+        from sweep.execute.worker import warm_up
 
         self.client.run(warm_up, task)  # every worker imports and loads the cached kernel at once
 
     def submit(self, tasks: list[TaskInput]) -> None:
-        from sweep.worker import run_task
+        from sweep.execute.worker import run_task
 
         # retries are the loop's; a future is dropped as soon as its small result is in
         futures = self.client.map(run_task, tasks, pure=False)

@@ -1,8 +1,8 @@
 """Run (or resume) a sweep on any backend: hold the store, schedule blocks, drive the loop.
 
 ``run`` is the whole path for every route: a session on the store (the lock of a whole run,
-or a shard's claim; ``sweep.session``), the schedule (every block not done, a shard's share
-of them, or the adaptive rounds of ``sweep.adaptive``), the backend's pool
+or a shard's claim; ``sweep.execute.session``), the schedule (every block not done, a shard's share
+of them, or the adaptive rounds of ``sweep.execute.adaptive``), the backend's pool
 (``sweep.execute.BACKENDS``) and the loop (``sweep.execute.loop.drive``).
 """
 
@@ -18,14 +18,16 @@ from typing import TYPE_CHECKING, Any, Callable, Iterator
 
 import numpy as np
 
-from sweep import session, store
+from sweep import store
+
+from sweep.execute import session
 from sweep.execute import BACKENDS
 from sweep.execute.execution import Execution
 from sweep.execute.loop import FailedTask, Progress, Tally, Terminated, drive
 from sweep.model import compile_network, initial_counts, rate_constants
-from sweep.tasks import Packer, Task, chunk_bytes, n_blocks
-from sweep.walltime import Budget
-from sweep.worker import BlockInput, TaskInput, warm_up
+from sweep.execute.tasks import Packer, Task, chunk_bytes, n_blocks
+from sweep.batch.walltime import Budget
+from sweep.execute.worker import BlockInput, TaskInput, warm_up
 
 if TYPE_CHECKING:
     from sweep.spec import Spec
@@ -161,8 +163,7 @@ def run(spec: Spec, execution: Execution | None = None, *, on_start: Callable[[S
 def _schedule(spec: Spec, prepared, record, execution: Execution):
     """The blocks to run: every one not done (a shard: its share), or the adaptive rounds."""
     if spec.adaptive is not None:
-        from sweep import adaptive
-
+        from sweep.execute import adaptive
         planner = adaptive.Planner(spec)
         return planner, [], planner
     scope = prepared.tasks if execution.shard is None else session.select(prepared.tasks, *execution.shard)

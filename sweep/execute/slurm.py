@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import _thread
 import asyncio
-import getpass
 import logging
 import signal
 import threading
@@ -41,7 +40,8 @@ from distributed.deploy import Adaptive
 from distributed.deploy.spec import ProcessInterface
 from distributed.security import Security
 
-from sweep.cluster import ClusterConfig, for_store
+from sweep.batch import jobs
+from sweep.batch.settings import ClusterConfig, for_store
 from sweep.errors import SweepError
 from sweep.execute.pool import DaskPool
 
@@ -179,7 +179,7 @@ class _Replacing(Adaptive):
                    if job.job_id and self.seen.get(name) != job.job_id}
         if not waiting:
             return
-        alive = await _queued_job_ids()
+        alive = await jobs.queued_ids()
         if alive is None:  # squeue failed: better to wait than to submit duplicates
             return
         for name, job in waiting.items():
@@ -201,18 +201,6 @@ class _Replacing(Adaptive):
 def _connected(job_name: str, worker_names: set[str]) -> bool:
     # a job with several processes runs workers named "<job name>-0", "<job name>-1", ...
     return job_name in worker_names or any(n.startswith(f"{job_name}-") for n in worker_names)
-
-
-async def _queued_job_ids() -> set[str] | None:
-    """Ids of this user's jobs still in Slurm's queue (pending, running, completing), or None on error."""
-    try:
-        proc = await asyncio.create_subprocess_exec(
-            "squeue", "-h", "-o", "%i", "-u", getpass.getuser(),
-            stdout=asyncio.subprocess.PIPE, stderr=asyncio.subprocess.PIPE)
-        out, _ = await asyncio.wait_for(proc.communicate(), timeout=60)
-    except (OSError, asyncio.TimeoutError):
-        return None
-    return set(out.decode().split()) if proc.returncode == 0 else None
 
 
 def _lost_message(watch: _Watch, job_id: str, count: int) -> str:
@@ -241,7 +229,7 @@ def make_cluster(config: ClusterConfig, log_dir: Path, security: Security | None
     Parameters
     ----------
     config : ClusterConfig
-        Resolved settings (``sweep.cluster.resolve``).
+        Resolved settings (``sweep.batch.settings.resolve``).
     log_dir : Path
         Folder for the jobs' output, shared with the compute nodes; with ``security`` it also
         holds the workers' copy of the temporary certificate and key (mode 600) while the

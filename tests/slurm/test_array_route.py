@@ -23,10 +23,12 @@ import pytest
 import zarr
 
 import sweep
-from sweep import records, store, walltime
+from sweep import store
+from sweep.store import records
+from sweep.batch import walltime
 from sweep.execute.run import task_inputs
-from sweep.tasks import make_tasks
-from sweep.worker import run_task, warm_up
+from sweep.execute.tasks import make_tasks
+from sweep.execute.worker import run_task, warm_up
 from shared_models import DIMERISING
 
 pytestmark = pytest.mark.slurm

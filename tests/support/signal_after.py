@@ -18,8 +18,7 @@ import sys
 def main() -> None:
     count, name, *argv = sys.argv[1:]
     after, sig = int(count), getattr(signal, name)
-    from sweep import session
-
+    from sweep.execute import session
     seen = [0]
 
     def arm(cls) -> None:

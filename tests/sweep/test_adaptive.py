@@ -24,7 +24,7 @@ import zarr
 from typer.testing import CliRunner
 
 import sweep
-from sweep import adaptive
+from sweep.execute import adaptive
 from sweep.cli import app
 from sweep.errors import SpecError
 

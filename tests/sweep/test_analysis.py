@@ -16,7 +16,8 @@ from distributed import LocalCluster
 from typer.testing import CliRunner
 
 import sweep
-from sweep import design, lock
+from sweep import design
+from sweep.store import lock
 from sweep.analysis import sensitivity, stats
 from sweep.analysis.adequacy import standard_errors
 from sweep.cli import app

@@ -12,7 +12,8 @@ import zarr
 
 from kernels.network import KernelResult
 from sweep import store
-from sweep.chunks import ChunkWriter
+from sweep.store import layout
+from sweep.store.chunks import ChunkWriter
 
 DTYPES = {"int32": -1, "float64": -1.0}
 
@@ -23,10 +24,10 @@ def _twin_stores(tmp_path, dtype, n_r=25, rb=10, n_t=7, n_s=3):
     for name in ("zarr", "ours"):
         g = zarr.open_group(tmp_path / name, mode="w")
         g.attrs["store_id"] = "x"
-        store._array(g, "counts", (2, n_r, n_t, n_s), (1, rb, n_t, n_s), dtype, -1,
-                     ("point", "replicate", "time", "species"), store._WRITE_EMPTY)
-        store._array(g, "status", (2, n_r), (1, rb), "int8", -1, ("point", "replicate"), store._WRITE_EMPTY)
-        store._array(g, "events", (2, n_r), (1, rb), "int64", -1, ("point", "replicate"), store._WRITE_EMPTY)
+        layout._array(g, "counts", (2, n_r, n_t, n_s), (1, rb, n_t, n_s), dtype, -1,
+                     ("point", "replicate", "time", "species"), layout._WRITE_EMPTY)
+        layout._array(g, "status", (2, n_r), (1, rb), "int8", -1, ("point", "replicate"), layout._WRITE_EMPTY)
+        layout._array(g, "events", (2, n_r), (1, rb), "int64", -1, ("point", "replicate"), layout._WRITE_EMPTY)
         paths.append(tmp_path / name)
     return paths
 
@@ -45,7 +46,7 @@ def test_the_same_bytes_as_zarr_full_edge_and_fill_valued_chunks(tmp_path, dtype
                               rng.integers(0, 10**6, size=n).astype(np.int64))
         g = zarr.open_group(by_zarr, mode="r+")
         for name, values in zip(store.DATA_ARRAYS, result):
-            g[name].with_config(store._WRITE_EMPTY)[point, start:stop] = values
+            g[name].with_config(layout._WRITE_EMPTY)[point, start:stop] = values
         sums = store.write_block(ours, point, start, stop, result, store_id="x")
         for name, crc in zip(store.DATA_ARRAYS, sums):
             key = f"{name}/c/{point}/{start // 10}" + ("/0/0" if name == "counts" else "")

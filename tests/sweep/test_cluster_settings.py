@@ -16,8 +16,8 @@ from distributed.security import Security
 from typer.testing import CliRunner
 
 import sweep
-from sweep import cluster as clusters
-from sweep import specdiff
+from sweep.batch import settings as clusters
+from sweep.spec import diff as specdiff
 from sweep.cli import app
 from sweep.errors import SpecError
 

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 from sweep.errors import SpecError
-from sweep.expr import Expr, evaluate, parse
+from sweep.model.expr import Expr, evaluate, parse
 
 VALUES = {"a": 2.0, "b": 3.0, "k_on": 0.5, "Kd": 4.0}
 

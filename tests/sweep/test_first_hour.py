@@ -419,8 +419,7 @@ def test_compare_methods_finds_the_cle_bias_of_a_telegraph_gene(spec_file):
     """The exact mean of the telegraph gene's mRNA follows linear moment equations (first-order
     reactions: common practice): dG/dt = k_on (1 - G) - k_off G, dM/dt = k_tx G - g M, G(0) = M(0) = 0.
     The direct method must agree with it; the CLE must be flagged (3.29 se, two-sided 0.1 %)."""
-    from sweep import compare
-
+    from sweep.plan import compare
     spec = sweep.load(spec_file(TELEGRAPH_BODY.format(method="cle", replicates=10), model=TELEGRAPH))
     result = compare.compare(spec, seconds=1.0, points=2)
     t, (k_on, k_off, g) = 5.0, (0.5, 0.5, 1.0)

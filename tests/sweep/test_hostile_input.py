@@ -3,7 +3,7 @@
 Each case used to give a traceback, a hang or a misleading error. Now ``sweep check`` answers
 with exit code 2 and a message naming the file and the dotted field, without a traceback, within
 a time bound (``hang_bound``), and ``sweep run`` refuses the same way before creating a store.
-The limits are ``sweep.limits``; the models are invented (``hostile_cases``).
+The limits are ``sweep.spec.limits``; the models are invented (``hostile_cases``).
 """
 
 from __future__ import annotations
@@ -18,9 +18,10 @@ import zarr
 
 from hang_bound import time_bound
 from hostile_cases import MODEL, RUN, SBML_SPEC, SPEC, check, no_traceback, runner, sbml, write, write_sbml
-from sweep import limits
+from sweep.spec import limits
 from sweep.cli import app
-from sweep.model import _net_change, compile_network, initial_counts, parse_model
+from sweep.model import compile_network, initial_counts, parse_model
+from sweep.model.tables import _net_change
 
 
 def refused(path: Path, field: str, *fragments: str, extra=(), seconds: float = 20.0) -> str:

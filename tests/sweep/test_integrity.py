@@ -24,7 +24,10 @@ from typer.testing import CliRunner
 
 import kernels
 import sweep
-from sweep import integrity, lock, session, store
+from sweep import store
+from sweep.store import layout
+from sweep.execute import session
+from sweep.store import integrity, lock
 from sweep.cli import app
 
 cli = CliRunner()
@@ -259,7 +262,7 @@ def _layout(path: Path) -> dict:
     attrs.pop("created")
     attrs.pop("store_id")
     return {"attrs": attrs, "arrays": _arrays(path),
-            "files": sorted(str(p.relative_to(path)) for p in path.rglob("*") if "sweep.lock" not in p.name)}
+            "files": sorted(str(p.relative_to(path)) for p in path.rglob("*") if "sweep.store.lock" not in p.name)}
 
 
 def _recreate(spec_path: Path, target: Path) -> None:
@@ -501,7 +504,7 @@ def test_a_garbled_root_zarr_json_is_named_in_status_and_run(reference, tmp_path
 def test_a_store_from_before_checksums_still_opens_resumes_and_says_what_verify_can_check(reference, tmp_path,
                                                                                            scheduler, monkeypatch):
     spec_path, expected = reference
-    monkeypatch.setattr(store, "_COMPRESSORS", store._COMPRESSORS[:1])  # compression only, as before
+    monkeypatch.setattr(layout, "_COMPRESSORS", layout._COMPRESSORS[:1])  # compression only, as before
     target = _half_done(tmp_path, spec_path, scheduler)
     monkeypatch.undo()
     g = zarr.open_group(target, mode="r+", use_consolidated=False)

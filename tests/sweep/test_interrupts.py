@@ -315,8 +315,8 @@ LAZY_API = textwrap.dedent("""
     heavy = sorted(m for m in ("numpy", "zarr", "xarray", "numba", "distributed", "typer") if m in sys.modules)
     import sweep.cli  # the command line's package too: main() takes over SIGINT before the commands load
     heavy += sorted(m for m in ("numpy", "typer") if m in sys.modules)
-    from sweep.status import verify  # binds sweep.status (the module) on the package, unless kept off
-    import sweep.trace, sweep.export
+    from sweep.store.status import verify  # the modules live in subpackages: sweep.status stays the function
+    import sweep.execute.trace, sweep.store.export
     kinds = {name: type(getattr(sweep, name)).__name__ for name in sweep.__all__}
     from sweep import *
     print(heavy, sorted(set(sweep.__all__) - set(dir())), kinds["status"], kinds["trace"], kinds["export"],

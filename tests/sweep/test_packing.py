@@ -16,7 +16,7 @@ from distributed import LocalCluster
 
 import sweep
 from sweep.execute.execution import Execution
-from sweep.tasks import Packer
+from sweep.execute.tasks import Packer
 
 BODY = """
 [run]

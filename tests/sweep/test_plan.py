@@ -11,6 +11,7 @@ from typer.testing import CliRunner
 import sweep
 from kernels.network import KernelResult
 from sweep import plan as planner
+from sweep.plan import estimate
 from sweep.cli import app
 
 runner = CliRunner()
@@ -140,10 +141,10 @@ def test_limits_are_quiet_for_sane_designs(small_plan):
 
 
 def test_spread_visits_every_prefix_evenly():
-    order = planner._spread(100, 5)
+    order = estimate._spread(100, 5)
     assert sorted(order) == [0, 25, 50, 74, 99] and order[:2] == [0, 99]
-    assert planner._spread(3, 32) == [0, 2, 1] and planner._spread(1, 5) == [0]
-    assert len(set(planner._spread(1000, 256))) == 256
+    assert estimate._spread(3, 32) == [0, 2, 1] and estimate._spread(1, 5) == [0]
+    assert len(set(estimate._spread(1000, 256))) == 256
 
 
 def test_trial_chunk_is_written_like_a_task_and_cleaned_up(small_plan, tmp_path):

@@ -26,7 +26,7 @@ from typer.testing import CliRunner
 
 import sweep
 from sweep.cli import app
-from sweep.lock import LOCK_NAME
+from sweep.store.lock import LOCK_NAME
 from shared_models import DIMERISING
 
 # 48 tasks of a few tenths of a second each: several seconds on 2 workers

@@ -1,4 +1,4 @@
-"""Models from SBML (``sweep.sbml``): import, unit conversions, refusals, export.
+"""Models from SBML (``sweep.model.sbml``): import, unit conversions, refusals, export.
 
 Every SBML document here is written by the test through libsbml (invented models). External
 references: the SBML Level 3 Version 2 Core specification (Hucka et al. 2019) for what a species
@@ -22,12 +22,13 @@ from distributed import LocalCluster
 from typer.testing import CliRunner
 
 import sweep
-from sweep import expr, specdiff
+from sweep.model import expr
+from sweep.spec import diff as specdiff
 from sweep.cli import app
 from sweep.errors import SpecError
 from sweep.model import compile_network, parse_model, rate_constants
-from sweep.sbml import read, write
-from sweep.sbml.math import from_ast, render
+from sweep.model.sbml import read, write
+from sweep.model.sbml.math import from_ast, render
 
 runner = CliRunner()
 N_A = 6.02214076e23

@@ -24,10 +24,13 @@ import zarr
 from typer.testing import CliRunner
 
 import sweep
-from sweep import claims, records, session, store, walltime
+from sweep import store
+from sweep.execute import session
+from sweep.store import claims, records
+from sweep.batch import jobs, walltime
 from sweep.execute.execution import parse_shard
 from sweep.cli import app
-from sweep.lock import LOCK_NAME
+from sweep.store.lock import LOCK_NAME
 from shared_models import DIMERISING
 
 # 48 tasks of a few tenths of a second each (the model of test_resume.py)
@@ -122,7 +125,7 @@ def test_walltime_budget_and_durations():
     assert walltime.parse_duration("45") == 45
     assert walltime.time_left({"SLURM_JOB_END_TIME": "1000"}, now=940.0) == 60.0
     assert walltime.time_left({}) is None
-    assert walltime.job_id({"SLURM_JOB_ID": "25", "SLURM_ARRAY_JOB_ID": "25", "SLURM_ARRAY_TASK_ID": "5"}) == "25_5"
+    assert jobs.job_id({"SLURM_JOB_ID": "25", "SLURM_ARRAY_JOB_ID": "25", "SLURM_ARRAY_TASK_ID": "5"}) == "25_5"
 
 
 def test_four_shards_at_once_complete_and_match_a_local_run(reference, tmp_path):
@@ -249,7 +252,7 @@ def test_adaptive_sweeps_are_refused_as_shards(tmp_path, spec_file):
 MUTEX_PROBE = """
 import os, sys, time
 from pathlib import Path
-from sweep import claims
+from sweep.store import claims
 folder = Path(sys.argv[1])
 for _ in range(15):
     with claims.holding_lock(folder):

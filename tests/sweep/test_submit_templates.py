@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from sweep import cluster, submit
+from sweep.batch import settings as cluster, submit
 from sweep.cli import app
 
 runner = CliRunner()

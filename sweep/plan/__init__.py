@@ -1,0 +1,25 @@
+"""Before a run: size a sweep and estimate its cost (``estimate``), measure kernels (``bench``),
+and compare a store with a reference (``compare``)."""
+
+from typing import TYPE_CHECKING
+
+from sweep import lazy
+
+_NAMES = {
+    "CALIBRATION_KEY": "sweep.plan.estimate",
+    "MAX_BYTES": "sweep.plan.estimate",
+    "MAX_TASKS": "sweep.plan.estimate",
+    "STARTUP_SECONDS": "sweep.plan.estimate",
+    "Plan": "sweep.plan.estimate",
+    "Size": "sweep.plan.estimate",
+    "limits": "sweep.plan.estimate",
+    "plan": "sweep.plan.estimate",
+    "size": "sweep.plan.estimate",
+    "write_trial": "sweep.plan.estimate",
+}
+__all__ = sorted(_NAMES)
+__getattr__, __dir__ = lazy.exports(__name__, _NAMES)
+
+if TYPE_CHECKING:  # what type checkers and IDEs see
+    from sweep.plan.estimate import (CALIBRATION_KEY, MAX_BYTES, MAX_TASKS, STARTUP_SECONDS, Plan, Size, limits, plan,
+                                     size, write_trial)
