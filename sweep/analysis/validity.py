@@ -91,3 +91,16 @@ def describe_low_copy(record: dict, limit: int = 10) -> list[str]:
     if len(record["points"]) > limit:
         lines.append(f"... and {len(record['points']) - limit:,} more points (store attribute low_copy)")
     return lines
+
+
+def record_low_copy(path) -> dict | None:
+    """Check the copy numbers of a store run by an approximate method and keep the report in its
+    attributes (``attrs["low_copy"]``); None for an exact method. The caller holds the store's lock."""
+    from sweep import store
+
+    method = str(store.attributes(path).get("method", ""))
+    if method not in APPROXIMATE:
+        return None
+    record = low_copy(store.open_dataset(path))
+    store.finish_run(path, low_copy=record)
+    return record

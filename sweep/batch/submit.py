@@ -221,7 +221,7 @@ def allocation_values(job: Job, profile: ClusterConfig, workers: int) -> dict[st
 
 def template_dir() -> Path:
     """``slurm_templates/`` of a source checkout, or the copy installed under ``<prefix>/share``."""
-    for candidate in (Path(__file__).resolve().parents[1] / "slurm_templates",
+    for candidate in (Path(__file__).resolve().parents[2] / "slurm_templates",
                       Path(sys.prefix) / "share" / "stochsweep" / "slurm_templates"):
         if (candidate / "array.sbatch").is_file():
             return candidate

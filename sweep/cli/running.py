@@ -68,6 +68,7 @@ def run(
             errors.print(f"[yellow]repaired:[/] {shown(line)}")
         if batch is not None:
             console.print(f"Dask scheduler: {shown(started.address)}", highlight=False)
+        console.print(f"store: {shown(spec.store)}", highlight=False, soft_wrap=True)
         if started.resumed:
             console.print(f"resuming: {started.pending:,} of {started.total:,} tasks left")
         if started.dashboard:
@@ -141,8 +142,8 @@ def _report(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
 def _check_results(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     """After a run: list the points that lost replicates, and check an approximate method's copy numbers.
 
-    The low-copy report is kept in the store's attributes (``attrs["low_copy"]``), where
-    `sweep status` and `sweep analyze` find it.
+    The run made the low-copy report and kept it in the store's attributes (``attrs["low_copy"]``),
+    where `sweep status` and `sweep analyze` find it.
     """
     from sweep.analysis import validity
 
@@ -151,11 +152,9 @@ def _check_results(summary: sweep.RunSummary, spec: sweep.Spec) -> None:
     st = sweep.status(summary.store)
     for i, line in enumerate(lost_lines(st.lost, st.points, st.max_events)):
         errors.print(("[yellow]warning:[/] " if i == 0 else "") + shown(line), highlight=False, soft_wrap=True)
-    if spec.method not in validity.APPROXIMATE:
+    record = summary.low_copy
+    if spec.method not in validity.APPROXIMATE or record is None:
         return
-    with console.status("checking copy numbers (the method's assumptions)..."):
-        record = validity.low_copy(sweep.open_results(summary.store))
-    store_mod.finish_run(summary.store, low_copy=record)
     lines = validity.describe_low_copy(record)
     for i, line in enumerate(lines):
         errors.print(("[yellow]warning:[/] " if i == 0 else "  ") + shown(line), highlight=False, soft_wrap=True)

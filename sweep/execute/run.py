@@ -73,6 +73,7 @@ class RunSummary:
     repaired: tuple[str, ...] = ()  # what was mended in the store before the run (sweep.integrity)
     shard: tuple[int, int] | None = None
     tasks_in_scope: int = 0  # the tasks this run was given: all (pending or done), or a shard's
+    low_copy: dict | None = None  # an approximate method's copy-number report (sweep.analysis.validity)
     time_left: float | None = None  # a shard's seconds left when it stopped (None: no limit known)
 
     @property
@@ -148,6 +149,7 @@ def run(spec: Spec, execution: Execution | None = None, *, on_start: Callable[[S
                 1 for t in scope if record.done[t.point, t.block])
             tally, simulating = _drive(spec, execution, prepared, record, schedule, budget, already, on_start,
                                        on_progress)
+            low_copy = _check_copy_numbers(spec, record) if tally.ran and execution.shard is None else None
     outcome = planner.finish(spec.store) if planner is not None else None
     asked = already + tally.scheduled
     return RunSummary(
@@ -157,7 +159,27 @@ def run(spec: Spec, execution: Execution | None = None, *, on_start: Callable[[S
         numerical=tally.numerical, seconds=time.perf_counter() - began, simulating_seconds=simulating,
         failed=tuple(tally.failed), stopped=tally.stopped, adaptive=outcome, repaired=prepared.repaired,
         shard=execution.shard, tasks_in_scope=asked if planner is not None else len(scope),
-        time_left=budget.left() if budget is not None else None)
+        time_left=budget.left() if budget is not None else None, low_copy=low_copy or opened_low_copy(spec))
+
+
+def _check_copy_numbers(spec: Spec, record) -> dict | None:
+    """An approximate method's low-copy report, made while this run holds the lock (shards: the
+    last one out makes it, ``sweep.execute.session``)."""
+    from sweep.analysis import validity
+
+    if spec.method not in validity.APPROXIMATE:
+        return None
+    record.flush()
+    return validity.record_low_copy(spec.store)
+
+
+def opened_low_copy(spec: Spec) -> dict | None:
+    """The low-copy report a store keeps (made by this run, or by the shard that completed it)."""
+    from sweep.analysis import validity
+
+    if spec.method not in validity.APPROXIMATE or not store.exists(spec.store):
+        return None
+    return store.attributes(spec.store).get("low_copy")
 
 
 def _schedule(spec: Spec, prepared, record, execution: Execution):

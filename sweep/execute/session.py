@@ -67,11 +67,18 @@ def prepare(spec: Spec, fresh: bool = False) -> Prepared:
             integrity.check_same_sweep(spec, points)
             mended = integrity.mend(spec, points)
             store.remove_partials(path)
+            _follow_presentation(spec)
             return Prepared(points, tasks, True, tuple(mended.describe()))
         store.create(path, spec, points, n_blocks(spec.store_replicates, spec.replicates_per_task))
     except OSError as exc:
         raise StoreError(f"{path}: cannot write the store: {exc}") from exc
     return Prepared(points, tasks, False)
+
+
+def _follow_presentation(spec: Spec) -> None:
+    """Keep the store's figure defaults (``[plot]``) in step with the spec: they may change on resume."""
+    if store.attributes(spec.store).get("default_species") != spec.plot_species:
+        store.set_attributes(spec.store, default_species=spec.plot_species)
 
 
 def check_same_sweep(spec: Spec) -> None:
@@ -258,5 +265,8 @@ def _tidy(path: Path, break_lock: bool) -> None:
     try:
         with claims.holding_lock(path, break_lock, wait=30.0):
             claims.fold(path, break_lock)
+            if not claims.list_claims(path) and store.read_done(path).all():
+                from sweep.analysis import validity  # the last shard out checks the copy numbers
+                validity.record_low_copy(path)
     except (StoreError, OSError):
         pass

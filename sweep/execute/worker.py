@@ -17,6 +17,7 @@ import numpy as np
 import kernels
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
+from sweep.store.chunks import group_commit
 from sweep import store
 
 
@@ -75,6 +76,13 @@ def run_task(task: TaskInput) -> TaskResult:
     kernel = kernels.get(task.method)
     options = dict(task.options)
     done, in_kernel = [], 0.0
+    with group_commit(task.store, task.store_id):  # durable before the task returns and is marked done
+        in_kernel = _run_blocks(task, kernel, options, done)
+    return TaskResult(tuple(done), time.perf_counter() - began, in_kernel)
+
+
+def _run_blocks(task: TaskInput, kernel, options: dict, done: list) -> float:
+    in_kernel = 0.0
     for b in task.blocks:
         started = time.perf_counter()
         # SeedSequence(root, spawn_key=(point, r)) for each replicate, computed compiled (kernels.seeding)
@@ -85,7 +93,7 @@ def run_task(task: TaskInput) -> TaskResult:
         done.append(BlockResult(b.point, b.block, int(result.events.sum()),
                                 int(np.count_nonzero(result.status == STATUS_EVENT_CAP)),
                                 int(np.count_nonzero(result.status == STATUS_NUMERICAL)), sums))
-    return TaskResult(tuple(done), time.perf_counter() - began, in_kernel)
+    return in_kernel
 
 
 def warm_up(task: TaskInput) -> None:

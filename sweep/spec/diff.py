@@ -14,7 +14,7 @@ import tomllib
 from typing import Any
 
 _IGNORED = ("run.store",)
-_IGNORED_TABLES = ("cluster.",)  # batch settings (sweep.cluster): where, not what
+_IGNORED_TABLES = ("cluster.", "plot.")  # batch settings, figure defaults: where and how shown, not what
 
 
 def content(spec_text: str, model_text: str, design_file_sha256: str = "") -> dict[str, Any]:

@@ -13,7 +13,7 @@ Layout of a spec::
     replicates = 400                  # per point
     replicates_per_task = 100         # one task = one Zarr chunk (default: 100)
     seed = 20261202                   # root seed (default 0)
-    store = "results/reporter.zarr"   # relative to the working directory (default <spec>.zarr)
+    store = "../results/reporter.zarr" # relative to this spec's folder, like the model (default <spec>.zarr)
     max_events = 100_000_000          # event cap per replicate
 
     [run.adaptive]                    # optional: more replicates where a statistic is imprecise
@@ -42,6 +42,7 @@ from __future__ import annotations
 
 import functools
 import hashlib
+import os
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Mapping
@@ -64,7 +65,8 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived", "cluster"}
+_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived", "cluster", "plot"}
+_PLOT_KEYS = {"species"}
 _RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options", "adaptive"}
 
 
@@ -96,6 +98,8 @@ class Spec:
     model_notes: tuple[tuple[str, str], ...] = ()   # SBML import: (element, conversion applied)
     # [cluster]: batch settings for `--cluster slurm` (sweep.cluster); they do not change the numbers
     cluster: tuple[tuple[str, Any], ...] = ()
+    # [plot] species: the species figures show when none is named; presentation only, like [cluster]
+    plot_species: str | None = None
 
     @property
     def store_replicates(self) -> int:
@@ -240,8 +244,13 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     seed = _int(run, "seed", src, "run", minimum=0, default=0)
     max_events = _int(run, "max_events", src, "run", minimum=1, default=DEFAULT_MAX_EVENTS,
                       maximum=limits.MAX_EVENT_CAP)
-    store_path = Path(store) if store is not None else Path(_str(run, "store", src, "run", f"{path.stem}.zarr"))
-    inputs.check_path(store_path, src, "--store" if store is not None else "run.store")
+    if store is not None:
+        store_path = Path(store)
+        inputs.check_path(store_path, src, "--store")
+    else:
+        named = _str(run, "store", src, "run", f"{path.stem}.zarr")
+        inputs.check_path(named, src, "run.store")
+        store_path = beside(path, named)
     times = _times(_sub(doc, "time", src, required=True), src)
     adaptive = None
     if "adaptive" in run:
@@ -250,6 +259,10 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     overrides = _sub(doc, "parameters", src)
     fixed = _fixed(overrides, model, src)
     design = designs.parse(_sub(doc, "design", src), dict(fixed), src)
+    for name in design.names:
+        if name in overrides:
+            raise SpecError(src, f"parameters.{name}", "also varied under [design]; the fixed value would be ignored",
+                            fix=f"remove {name} from [parameters], or from the design")
     derived = _derived(_sub(doc, "derived", src), dict(fixed), overrides, design.names, src)
     limits.check_sweep(designs.size(design), adaptive.max_replicates if adaptive is not None else replicates,
                        per_task, len(times), len(model.species), lambda: _itemsize(method),
@@ -262,7 +275,8 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
                 max_events, times, fixed, design, derived, options, adaptive,
                 model_notes=imported.notes if imported is not None else (),
-                cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()))
+                cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()),
+                plot_species=_plot_species(_sub(doc, "plot", src), model, src))
     check_points(spec, src, _model_source(doc, path))
     return spec
 
@@ -326,6 +340,25 @@ def _sub(doc, key, src, required=False) -> dict:
     if not isinstance(value, dict):
         raise SpecError(src, key, "must be a table", value, f"write it as [{key}]")
     return value
+
+
+def beside(spec_path: Path, named: str | Path) -> Path:
+    """A path the spec names, relative to the spec's folder (as the model file is), so that every
+    command finds the same store from any working directory; an absolute path stays as it is."""
+    named = Path(named)
+    if named.is_absolute():
+        return named
+    return Path(os.path.normpath(spec_path.parent / named))
+
+
+def _plot_species(table, model: Model, src) -> str | None:
+    _unknown(table, _PLOT_KEYS, src, "plot")
+    if "species" not in table:
+        return None
+    name = table["species"]
+    if not isinstance(name, str) or name not in model.species:
+        raise SpecError(src, "plot.species", "not a species of the model", name, fix=f"one of {listing(model.species)}")
+    return name
 
 
 def _unknown(table, allowed, src, prefix) -> None:

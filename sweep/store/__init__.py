@@ -35,6 +35,7 @@ _NAMES = {
     "write_coordinates": "sweep.store.layout",
     "chunk_file": "sweep.store.blocks",
     "finish_run": "sweep.store.blocks",
+    "set_attributes": "sweep.store.blocks",
     "has_checksums": "sweep.store.blocks",
     "read_checksums": "sweep.store.blocks",
     "read_done": "sweep.store.blocks",
@@ -55,5 +56,6 @@ if TYPE_CHECKING:  # what type checkers and IDEs see
                                     DamagedDone, attributes, brief, check_claimable, consolidate, counts_dtype, create, exists,
                                     incomplete, is_ours, open_dataset, store_id, versions, write_coordinates)
     from sweep.store.blocks import (chunk_file, finish_run, has_checksums, read_checksums, read_done, read_done_array,
-                                    record_failures, recreate_done, remove_partials, trailing_checksum, write_block,
+                                    record_failures, recreate_done, remove_partials, set_attributes, trailing_checksum,
+                                    write_block,
                                     write_checksums, write_done)

@@ -193,6 +193,14 @@ def record_failures(path: Path, failed: list[dict], done: np.ndarray) -> None:
     g.attrs["failed_tasks"] = sorted(kept + failed, key=lambda f: (f["point"], f["block"]))
 
 
+def set_attributes(path: Path, **attrs) -> None:
+    """Set (or, with None, remove) root attributes, then consolidate; the lock's holder only."""
+    g = zarr.open_group(path, mode="r+", use_consolidated=False)
+    merged = {**g.attrs.asdict(), **attrs}
+    g.attrs.put({k: v for k, v in merged.items() if v is not None})  # one write of zarr.json
+    consolidate(path)
+
+
 def finish_run(path: Path, **attrs) -> None:
     """Record run attributes (e.g. when it last ran), then consolidate metadata last.
 

@@ -14,6 +14,11 @@ before ``done`` marks its task):
 - the chunk's folder after the rename (the new directory entry);
 - a folder's parent, only when that folder was created by this write (its entry is new).
 
+A task of several blocks commits them as a group (``group_commit``): every chunk file is
+written first, then all are fsynced at once from a few threads (the file system folds
+concurrent fsyncs into one journal commit), renamed, and each folder touched is fsynced once.
+The worker returns, and the client marks the blocks done, only after the commit.
+
 Handles are cached per (store path, store id): the id is a random value written at the
 store's creation, so a store deleted and created again at the same path (``--fresh``) is
 opened afresh. A store whose arrays use another codec chain is written through zarr.
@@ -21,11 +26,14 @@ opened afresh. A store whose arrays use another codec chain is written through z
 
 from __future__ import annotations
 
+import contextlib
 import os
+import threading
 import uuid
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
-from typing import ClassVar
+from typing import ClassVar, Iterator
 
 import numpy as np
 
@@ -33,6 +41,22 @@ from sweep.store import durable
 from sweep.errors import StoreError
 
 _FLAGS = os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW
+FSYNC_THREADS = 8
+_fsyncs: ThreadPoolExecutor | None = None
+
+
+def _fsync_all(paths) -> None:
+    """fsync every path, concurrently (a file's dirty pages are its inode's: any descriptor flushes them)."""
+    global _fsyncs
+    paths = list(paths)
+    if len(paths) <= 1:
+        for path in paths:
+            durable.fsync(path)
+        return
+    if _fsyncs is None:
+        _fsyncs = ThreadPoolExecutor(FSYNC_THREADS, thread_name_prefix="sweep:fsync")
+    for _ in _fsyncs.map(durable.fsync, paths):
+        pass  # re-raises the first OSError
 
 
 @dataclass
@@ -76,6 +100,17 @@ class ChunkWriter:
         self.real_root = os.path.realpath(root)
         self.arrays = arrays
         self._known_dirs: set[str] = set()  # chunk folders already checked (inside the store) or made
+        self._group = threading.local()  # a thread's group commit: workers may run tasks in threads
+
+    @property
+    def _pending(self) -> list[tuple[Path, Path]] | None:
+        """The (temporary, final) files of this thread's group commit; None outside one."""
+        return getattr(self._group, "pending", None)
+
+    @property
+    def _made_in(self) -> set[Path]:
+        """Parents of the folders made during this thread's group commit."""
+        return self._group.made_in
 
     @classmethod
     def of(cls, root: str | Path, store_id: str) -> "ChunkWriter | None":
@@ -136,12 +171,36 @@ class ChunkWriter:
         fd = os.open(tmp, _FLAGS, 0o644)
         try:
             os.write(fd, data)
-            os.fsync(fd)
+            if self._pending is None:
+                os.fsync(fd)
         finally:
             os.close(fd)
+        if self._pending is not None:
+            self._pending.append((tmp, target))
+            return crc
         os.replace(tmp, target)
         durable.fsync(target.parent)
         return crc
+
+    @contextlib.contextmanager
+    def group(self) -> Iterator[None]:
+        """Commit the chunks written inside as one group, durably, when the block ends without error."""
+        if self._pending is not None:  # already in a group: the outer one commits
+            yield
+            return
+        self._group.pending, self._group.made_in = [], set()
+        try:
+            yield
+            pending, made_in = self._pending, self._made_in
+            _fsync_all(tmp for tmp, _ in pending)
+            for tmp, target in pending:
+                os.replace(tmp, target)
+            _fsync_all({target.parent for _, target in pending} | made_in)
+        finally:
+            for tmp, _ in self._pending or ():
+                with contextlib.suppress(OSError):
+                    os.unlink(tmp)  # only files not renamed: a failed group leaves no partials
+            self._group.pending, self._group.made_in = None, set()
 
     def _folder(self, folder: Path) -> None:
         """Make sure the chunk's folder exists inside the store; fsync the parents of folders made."""
@@ -158,9 +217,24 @@ class ChunkWriter:
                 os.mkdir(made)
             except FileExistsError:
                 pass
-            durable.fsync(made.parent)
+            if self._pending is not None:
+                self._made_in.add(made.parent)
+            else:
+                durable.fsync(made.parent)
         real = os.path.realpath(folder)
         if not (real == self.real_root or real.startswith(self.real_root + os.sep)):
             raise StoreError(f"{self.root}: {folder.relative_to(self.root)} leads out of the store through a "
                              "symlink; refusing to write there")
         self._known_dirs.add(key)
+
+
+@contextlib.contextmanager
+def group_commit(root: str | Path, store_id: str) -> Iterator[None]:
+    """Inside, ``write_block`` to this store defers its fsyncs to one group commit at the end
+    (``ChunkWriter.group``); a store written through zarr commits each chunk as before."""
+    writer = ChunkWriter.of(root, store_id) if store_id else None
+    if writer is None:
+        yield
+        return
+    with writer.group():
+        yield

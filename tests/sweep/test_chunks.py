@@ -71,3 +71,51 @@ def test_a_chunk_written_over_is_replaced_whole(tmp_path):
         block = KernelResult(np.full((10, 7, 3), value, np.int32), np.zeros(10, np.int8), np.zeros(10, np.int64))
         store.write_block(ours, 0, 0, 10, block, store_id="x")
     assert (zarr.open_group(ours, mode="r")["counts"][0, :10] == 7).all()
+
+
+def _block(value, n=10):
+    return KernelResult(np.full((n, 7, 3), value, np.int32), np.zeros(n, np.int8), np.full(n, value, np.int64))
+
+
+def test_a_group_commit_renames_at_its_end_and_a_failed_one_leaves_nothing(tmp_path):
+    from sweep.store.chunks import group_commit
+
+    _, ours = _twin_stores(tmp_path, "int32")
+    with group_commit(ours, "x"):
+        store.write_block(ours, 0, 0, 10, _block(4), store_id="x")
+        assert not (ours / "status" / "c" / "0" / "0").exists()  # not in place before the commit
+        assert list(ours.rglob("*.partial"))
+    assert (zarr.open_group(ours, mode="r")["counts"][0, :10] == 4).all()
+    with pytest.raises(RuntimeError):
+        with group_commit(ours, "x"):
+            store.write_block(ours, 1, 0, 10, _block(6), store_id="x")
+            raise RuntimeError("the kernel failed mid-task")
+    assert not list(ours.rglob("*.partial"))
+    assert not (ours / "status" / "c" / "1" / "0").exists()
+
+
+def test_group_commits_in_threads_of_one_worker_stay_apart(tmp_path):
+    """A Dask worker may run tasks in several threads: each thread's group is its own."""
+    import threading
+
+    from sweep.store.chunks import group_commit
+
+    by_zarr, ours = _twin_stores(tmp_path, "int32", n_r=40)
+    barrier = threading.Barrier(2)
+
+    def task(point):
+        with group_commit(ours, "x"):
+            for b in range(4):
+                store.write_block(ours, point, 10 * b, 10 * b + 10, _block(point * 10 + b), store_id="x")
+                if b == 1:
+                    barrier.wait()  # both groups are open at once
+    threads = [threading.Thread(target=task, args=(p,)) for p in (0, 1)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    counts = zarr.open_group(ours, mode="r")["counts"][:]
+    for point in (0, 1):
+        for b in range(4):
+            assert (counts[point, 10 * b:10 * b + 10] == point * 10 + b).all()
+    assert not list(ours.rglob("*.partial"))

@@ -386,13 +386,36 @@ def test_status_of_a_spec_finds_its_store(tmp_path, spec_file, cluster, monkeypa
     monkeypatch.chdir(tmp_path)
     spec = spec_file("[run]\nreplicates = 4\nreplicates_per_task = 4\nstore = \"s.zarr\"\n"
                      "[time]\nend = 1.0\nsamples = 3\n")
-    result = runner.invoke(app, ["status", str(spec)])
-    assert result.exit_code == 2 and "this is a spec; its store s.zarr does not exist yet" in " ".join(
+    result = runner.invoke(app, ["status", str(spec)], terminal_width=400)
+    assert result.exit_code == 2 and f"this is a spec; its store {tmp_path / 's.zarr'} does not exist yet" in " ".join(
         result.output.split())
     _run_cli(spec, cluster)
-    result = runner.invoke(app, ["status", str(spec)], terminal_width=200)
-    assert result.exit_code == 0 and "is a spec; its store is s.zarr" in result.output
+    result = runner.invoke(app, ["status", str(spec)], terminal_width=400)
+    assert result.exit_code == 0 and f"is a spec; its store is {tmp_path / 's.zarr'}" in result.output
     assert "1 done, 0 failed" in result.output
+
+
+def test_run_store_is_beside_the_spec_from_any_folder(tmp_path, spec_file, cluster, monkeypatch):
+    """`cd` into another folder, run again: the same store is found and resumed, not a new one begun."""
+    spec = spec_file("[run]\nreplicates = 4\nreplicates_per_task = 4\nstore = \"out/s.zarr\"\n"
+                     "[time]\nend = 1.0\nsamples = 3\n")
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    monkeypatch.chdir(elsewhere)
+    first = runner.invoke(app, ["run", str(spec), "--scheduler", cluster], terminal_width=400)
+    assert first.exit_code == 0 and f"store: {tmp_path / 'out' / 's.zarr'}" in first.output, first.output
+    monkeypatch.chdir(tmp_path)
+    again = runner.invoke(app, ["run", "spec.toml", "--scheduler", cluster], terminal_width=400)
+    assert again.exit_code == 0 and "nothing to do" in again.output, again.output
+    assert not (elsewhere / "out").exists() and (tmp_path / "out" / "s.zarr" / "zarr.json").exists()
+
+
+def test_a_parameter_both_fixed_and_varied_is_refused(tmp_path, spec_file):
+    spec = spec_file("[run]\nreplicates = 4\n[time]\nend = 1.0\nsamples = 3\n[parameters]\nk = 2.0\n"
+                     "[design]\nkind = \"grid\"\n[design.vary]\nk = [1.0, 2.0]\n")
+    result = runner.invoke(app, ["check", str(spec)], terminal_width=400)
+    assert result.exit_code == 2, result.output
+    assert "parameters.k" in result.output and "also varied under [design]" in result.output, result.output
 
 
 # --- approximate methods ----------------------------------------------------------------------------
@@ -543,3 +566,16 @@ def test_time_unit_from_the_store_on_axes_and_tables(fates, tmp_path):
                            terminal_width=200)
     assert "mean(P) at t=4 min" in result.output
     assert json.loads(json.dumps(zarr.open_group(fates, path="analysis", mode="r").attrs["time_unit"])) == "min"
+
+
+def test_plot_species_names_the_default_species_and_may_change_on_resume(tmp_path, spec_file, cluster):
+    body = "[run]\nreplicates = 4\nreplicates_per_task = 4\nstore = \"p.zarr\"\n[time]\nend = 1.0\nsamples = 3\n"
+    spec = spec_file(body + "[plot]\nspecies = \"A\"\n")
+    _run_cli(spec, cluster)
+    assert zarr.open_group(tmp_path / "p.zarr", mode="r").attrs["default_species"] == "A"
+    spec = spec_file(body)  # the figure default is presentation: changing it resumes the same sweep
+    _run_cli(spec, cluster)
+    assert "default_species" not in zarr.open_group(tmp_path / "p.zarr", mode="r").attrs
+    bad = spec_file(body + "[plot]\nspecies = \"Q\"\n", name="bad.toml")
+    result = runner.invoke(app, ["check", str(bad)], terminal_width=400)
+    assert result.exit_code == 2 and "plot.species" in result.output, result.output

@@ -92,8 +92,8 @@ def test_event_cap_in_calibration_is_reported(spec_file):
 
 
 def test_short_calibration_cap_is_extrapolated(spec_file, monkeypatch):
-    monkeypatch.setattr(planner, "FIRST_CAP", 20)
-    monkeypatch.setattr(planner, "MAX_CALIBRATION_REPLICATES", 1)
+    monkeypatch.setattr(estimate, "FIRST_CAP", 20)
+    monkeypatch.setattr(estimate, "MAX_CALIBRATION_REPLICATES", 1)
     spec = sweep.load(spec_file(GRID.replace("k = [2.0, 5.0, 10.0]", "k = [10.0]").replace("g = [0.5, 1.0]", "g = [1.0]")))
     # a budget too small to raise the cap: the one replicate stops after 20 events at about t = 1,
     # and its events are extrapolated over the 20 time units
