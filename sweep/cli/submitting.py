@@ -29,7 +29,7 @@ def submit(
     output: Annotated[Path | None, typer.Option("--output", "-o", help="Folder for the scripts and logs (default: <store name>.slurm beside the store).")] = None,
     out: Annotated[Path | None, typer.Option("--out", hidden=True, help="Old spelling of --output.")] = None,
     dry_run: Annotated[bool, typer.Option("--dry-run", help="Write and print the scripts; submit nothing.")] = False,
-    profile: Annotated[Path | None, typer.Option(help="Site profile: a TOML file with a \\[cluster] table (README: Running on a cluster).")] = None,
+    profile: Annotated[Path | None, typer.Option(help="Site profile: a TOML file with a \\[cluster] table (docs/running.md).")] = None,
     partition: Annotated[str | None, typer.Option(envvar="SWEEP_PARTITION", help="Slurm partition.")] = None,
     account: Annotated[str | None, typer.Option(envvar="SWEEP_ACCOUNT", help="Slurm account to charge.")] = None,
     walltime: Annotated[str | None, typer.Option(envvar="SWEEP_WALLTIME", help="Time limit of each job, HH:MM:SS (default 01:00:00).")] = None,

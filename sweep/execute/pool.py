@@ -5,7 +5,7 @@ exception (``next``), says how many are in flight, and drops what is in flight (
 The loop (``sweep.execute.loop``) alone decides what to submit, retries, records and reports.
 
 ``DaskPool`` serves the three Dask backends (a local cluster, an existing scheduler, Dask
-workers as Slurm jobs): each gives it a connected client. ``sweep.execute.shard`` runs tasks
+workers as Slurm jobs): each gives it a connected client. ``sweep.execute.inprocess`` runs tasks
 in this process instead.
 """
 

@@ -5,7 +5,7 @@ The scheduler runs in this process; each Slurm job runs ``processes`` worker pro
 each worker gracefully ``lifetime_margin`` before its walltime (``ClusterConfig.worker_args``),
 and cancels every job it submitted when the sweep ends, fails or is interrupted.
 
-What dask-jobqueue and distributed do not cover, and this module adds (see DEVELOPERS.md):
+What dask-jobqueue and distributed do not cover, and this module adds (see docs/design-notes.md):
 
 - A retired or lost worker's job is replaced only once the cluster forgets it, after
   ``distributed.deploy.lost-worker-timeout`` (15 s by default, with nobody working when all

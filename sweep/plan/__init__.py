@@ -1,5 +1,6 @@
-"""Before a run: size a sweep and estimate its cost (``estimate``), measure kernels (``bench``),
-and compare a store with a reference (``compare``)."""
+"""Before a run: size a sweep and estimate its cost (``estimate``), run an exact method beside an
+approximate one (``compare``, ``sweep plan --compare-methods``), and measure kernels (``bench``)
+and whole sweeps (``throughput``, ``sweep bench --sweep``)."""
 
 from typing import TYPE_CHECKING
 

@@ -39,7 +39,7 @@ MAX_TASKS = 1_000_000
 MAX_BYTES = 10**12
 # Start-up and shut-down of a local run (store creation, cluster start, kernel warm-up in
 # every worker, cluster close): 4.0-5.3 s on 2 idle cores, up to 10 s on busy ones
-# (DEVELOPERS.md, "Planning").
+# (docs/design-notes.md, "Planning").
 STARTUP_SECONDS = 5.0
 # Scheduling, completion record and progress per task, besides the chunk write (which is
 # measured): 2-3 ms with a bounded window of tasks in flight.

@@ -120,7 +120,7 @@ def specs(folder: Path, demo: Path | None, scale: float = 1.0) -> dict[str, Path
     }
     paths = {}
     if demo is not None and demo.exists():
-        text = demo.read_text()
+        text = demo.read_text().split("\n[plot]")[0]  # figure defaults: not known to older checkouts
         model = demo.parent / "reporter_model.toml"
         (folder / "reporter_model.toml").write_text(model.read_text()) if model.exists() else None
         paths["demo"] = folder / "demo.toml"

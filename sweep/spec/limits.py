@@ -4,7 +4,7 @@
 *before* they read past the limit, expand a design, list tasks, allocate arrays or touch a store.
 Each limit is either a hard fact (32-bit counts, the operating system's path limits, Python's
 parser) or the point where ``check`` itself would take minutes or gigabytes; the numbers below
-were measured on a 2-core machine (NOTES-hostile-input.md). Where a limit can be met by
+were measured on a 2-core machine (docs/limits.md). Where a limit can be met by
 reshaping the sweep (more replicates per task, fewer samples), the message says how.
 """
 
@@ -38,7 +38,7 @@ MAX_EXPRESSION_NODES = 10_000
 
 # ---- models ----------------------------------------------------------------------------------
 # `sweep check` prints every species; rich needs ~0.12 ms per species and the import ~0.1 ms per
-# reaction, so check takes ~25 s at these limits (measured figures in NOTES-hostile-input.md)
+# reaction, so check takes ~25 s at these limits (measured figures in docs/limits.md)
 MAX_SPECIES = 100_000
 MAX_REACTIONS = 100_000
 # libsbml's consistency check (general and MathML rules) grows with the square of the model:

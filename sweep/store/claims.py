@@ -1,6 +1,6 @@
 """Shard claims: several ``sweep run --shard I/N`` processes writing one store safely.
 
-Rules (DEVELOPERS.md, "Shards"):
+Rules (docs/running.md and docs/design-notes.md, shards):
 
 - The store's lock ``<store>/sweep.lock`` is still the one way in. A whole ``sweep run``
   holds it for its run (role ``"run"``). A shard holds it only for a moment (role

@@ -142,7 +142,7 @@ def read(text: str, source: str) -> Imported:
     if ctx.problems:
         listing = "\n  - ".join(ctx.problems)
         raise SpecError(source, "", f"the SBML model uses {len(ctx.problems)} unsupported element(s):\n  - {listing}",
-                        fix="remove or rewrite them; README 'Models from SBML' lists what is supported")
+                        fix="remove or rewrite them; docs/models.md, 'Models from SBML', lists what is supported")
     parameters = {name: float(value) for name, value in ctx.values.items()}
     table = {"species": initial, "parameters": parameters, "reactions": reactions}
     return Imported(table, tuple((n, t) for n, t in ctx.derived.items()), tuple(ctx.aliases.items()),
