@@ -9,7 +9,7 @@ has the same function::
 ``x`` holds the points' values of the ``d`` parameters analysed (in the design's order, one
 condition at a time), ``y`` one output per point (NaN where undefined), ``facts`` the design's
 description (``sweep.design.describe``), ``seed`` seeds any bootstrap. Which method a store
-gets follows from its design's kind (``FOR_DESIGN``).
+gets is named by its design's module (``SENSITIVITY``; ``sweep.design.sensitivity``).
 
 Values are dotted module names, imported on first use (SALib pulls in matplotlib and pandas).
 """
@@ -25,20 +25,9 @@ METHODS: dict[str, str] = {
     "morris": "sweep.analysis.morris",
 }
 
-#: design kind -> sensitivity method (kinds missing here get no sensitivity analysis)
-FOR_DESIGN: dict[str, str] = {
-    "grid": "prcc",
-    "lhs": "prcc",
-    "sobol": "prcc",
-    "table": "prcc",
-    "saltelli": "sobol",
-    "morris": "morris",
-}
-
-
 def get(name: str) -> ModuleType:
     """The module of sensitivity method ``name`` (a key of ``METHODS``)."""
     return importlib.import_module(METHODS[name])
 
 
-__all__ = ["FOR_DESIGN", "METHODS", "get"]
+__all__ = ["METHODS", "get"]

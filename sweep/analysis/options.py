@@ -19,14 +19,14 @@ from dataclasses import dataclass
 from sweep.errors import SpecError
 
 OPERATORS = (">=", "<=", ">", "<")
+from sweep.analysis import statistics as _table
+
 #: statistics of a species' count at a time, computed at every (point, time, species)
-SPECIES_STATISTICS = ("mean", "var", "sd", "cv", "fano")
+SPECIES_STATISTICS = _table.names("species")
 #: statistics of a threshold: fraction meeting it at a time, mean first-passage time, fraction never
-THRESHOLD_STATISTICS = ("fraction", "passage_mean", "never")
+THRESHOLD_STATISTICS = _table.names("threshold")
 STATISTICS = SPECIES_STATISTICS + THRESHOLD_STATISTICS
-NAMES = {"mean": "mean", "var": "variance", "sd": "standard deviation", "cv": "coefficient of variation",
-         "fano": "Fano factor", "fraction": "fraction of replicates meeting", "passage_mean": "mean first-passage time",
-         "never": "fraction never meeting"}
+NAMES = {s.name: s.label for s in _table.TABLE if s.kind != "column"}
 _THRESHOLD = re.compile(r"^\s*([A-Za-z_][A-Za-z0-9_]*)\s*(>=|<=|>|<)\s*([-+0-9.eE]+)\s*$")
 
 

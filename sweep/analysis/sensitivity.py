@@ -24,7 +24,10 @@ COLUMNS = ("method", "condition", "parameter", "index", "value", "conf_low", "co
 
 def method_for(facts: Mapping[str, Any]) -> str | None:
     """The registered method for the design's kind (None: no sensitivity analysis for it)."""
-    return analysis.FOR_DESIGN.get(facts.get("kind", ""))
+    from sweep import design
+
+    kind = facts.get("kind", "")
+    return design.sensitivity(kind) if kind in design.DESIGNS else None
 
 
 def indices(facts: Mapping[str, Any], points: np.ndarray, y: np.ndarray, seed: int = 0) -> pd.DataFrame:

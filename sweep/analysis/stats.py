@@ -26,6 +26,7 @@ from typing import Sequence
 import numpy as np
 import xarray as xr
 
+from sweep.analysis import statistics
 from sweep.analysis.options import Threshold
 
 COMPARE = {">=": operator.ge, ">": operator.gt, "<=": operator.le, "<": operator.lt}
@@ -91,14 +92,12 @@ def fractions(x: xr.DataArray, thresholds: Sequence[Threshold]) -> xr.DataArray:
         met = COMPARE[th.op](values, th.value).where(values.notnull())
         parts.append(met.mean("replicate").drop_vars("species", errors="ignore"))
     out = xr.concat(parts, dim="threshold").transpose("point", "time", "threshold")
-    out.attrs["long_name"] = "fraction of finished replicates meeting the threshold"
+    out.attrs["long_name"] = statistics.BY_NAME["fraction"].description
     return out.assign_coords(threshold=np.array([th.label for th in thresholds], dtype=object))
 
 
 _DESCRIPTIONS = {
-    "n": "finished replicates used", "mean": "mean count", "var": "variance of the count (ddof 1)",
-    "sd": "standard deviation of the count", "cv": "coefficient of variation (sd / mean)",
-    "fano": "Fano factor (variance / mean)", "min": "smallest count", "max": "largest count",
+    **{s.name: s.description for s in statistics.TABLE if s.kind != "threshold"},
     "m3": "third central moment (divisor n)", "m4": "fourth central moment (divisor n)",
     "quantiles": "quantiles of the count (linear interpolation, Hyndman & Fan type 7)",
 }

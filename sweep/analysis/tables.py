@@ -37,17 +37,19 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from sweep.analysis import statistics
 from sweep.errors import StoreError
 
 POINTS_PER_BLOCK = 256
 TABLES = ("statistics.csv", "thresholds.csv", "passage.csv", "passage_distribution.csv", "histograms.csv",
           "stationary.csv", "sensitivity.csv", "adequacy.csv", "modes.csv")
-_STATISTICS = ("n", "mean", "var", "sd", "cv", "fano", "min", "max")
+_STATISTICS = statistics.names("column", "species")  # statistics.csv's columns, in table order
+_ERRORS = tuple(f"se_{v}" for v in statistics.with_standard_errors())
 _PASSAGE = {"passage_n": "replicates", "passage_crossed": "passed", "never": "never", "passage_mean": "mean",
             "passage_sd": "sd", "passage_median": "median"}
 #: every column name a table uses besides the parameters' (quantile columns, q0.05, hold a dot)
 RESERVED = frozenset({
-    "point", "time", "species", "threshold", *_STATISTICS, *(f"se_{v}" for v in ("mean", "var", "sd", "cv", "fano")),
+    "point", "time", "species", "threshold", *_STATISTICS, *_ERRORS,
     "fraction", *_PASSAGE.values(), "pmf", "cdf", "bin_low", "bin_high", "output", "statistic", "method",
     "condition", "parameter", "index", "value", "conf_low", "conf_high", "p_value", "points", "note", "se",
     "relative_se", "replicates", "target_se", "meets", "replicates_needed", "low_share", "high_share", "split",
@@ -158,7 +160,7 @@ def _frame(block: xr.Dataset, order: list[str]) -> pd.DataFrame:
 
 def _statistics(block: xr.Dataset) -> pd.DataFrame:
     order = ["point", "time", "species"]
-    errors = [f"se_{v}" for v in ("mean", "var", "sd", "cv", "fano") if f"se_{v}" in block]
+    errors = [name for name in _ERRORS if name in block]
     table = _frame(block[list(_STATISTICS) + errors], order)
     if "quantiles" in block:
         for i, q in enumerate(block["quantile"].values):

@@ -10,22 +10,14 @@ import numpy as np
 import typer
 from rich.table import Table
 
-from sweep.analysis.options import AnalysisOptions, parse_threshold
+from sweep.analysis.options import STATISTICS, AnalysisOptions, parse_threshold
 from sweep.cli.common import TIME_FORMS, console, duration, exits_on_errors, parse_times, shown, store_path
 
 #: the most rows a list of points prints (the CSV tables hold them all)
 SHOW_ROWS = 12
 
 
-class Statistic(StrEnum):
-    mean = "mean"
-    var = "var"
-    sd = "sd"
-    cv = "cv"
-    fano = "fano"
-    fraction = "fraction"
-    passage_mean = "passage_mean"
-    never = "never"
+Statistic = StrEnum("Statistic", {name: name for name in STATISTICS})  # the one table (sweep.analysis.statistics)
 
 
 @exits_on_errors

@@ -8,6 +8,7 @@ from typing import Annotated
 
 import typer
 
+from sweep.analysis.options import STATISTICS
 from sweep.cli.common import POINT_FORMS, console, exits_on_errors, parse_points, shown, store_path
 from sweep.errors import SpecError
 
@@ -20,15 +21,7 @@ class Kind(StrEnum):
     heatmap = "heatmap"
 
 
-class Statistic(StrEnum):
-    mean = "mean"
-    var = "var"
-    sd = "sd"
-    cv = "cv"
-    fano = "fano"
-    fraction = "fraction"
-    passage_mean = "passage_mean"
-    never = "never"
+Statistic = StrEnum("Statistic", {name: name for name in STATISTICS})  # the one table (sweep.analysis.statistics)
 
 
 @exits_on_errors

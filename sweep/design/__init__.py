@@ -112,4 +112,9 @@ def describe(design: Design) -> dict[str, Any]:
     return importlib.import_module(DESIGNS[design.kind]).describe(design)
 
 
-__all__ = ["DESIGNS", "DESIGN_SPAWN_KEY", "Design", "describe", "expand", "parse", "rng", "size"]
+def sensitivity(kind: str) -> str:
+    """The sensitivity method (a key of ``sweep.analysis.METHODS``) that design ``kind`` names."""
+    return importlib.import_module(DESIGNS[kind]).SENSITIVITY
+
+
+__all__ = ["DESIGNS", "DESIGN_SPAWN_KEY", "Design", "describe", "expand", "parse", "rng", "sensitivity", "size"]

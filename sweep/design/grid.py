@@ -21,6 +21,9 @@ import numpy as np
 from sweep.design import Design, levels
 from sweep.errors import SpecError
 
+#: the sensitivity method a sweep of this design gets (points spread over the space: partial rank correlation (Marino et al. 2008))
+SENSITIVITY = "prcc"
+
 
 def parse(table: Mapping[str, Any], known: Mapping[str, float], source: str) -> Design:
     """Validate ``kind = "grid"`` with a ``[design.vary]`` table of value lists or ranges.

@@ -25,6 +25,9 @@ from scipy.stats import qmc
 from sweep.design import Design, levels, rng, sampled
 from sweep.errors import SpecError
 
+#: the sensitivity method a sweep of this design gets (points spread over the space: partial rank correlation (Marino et al. 2008))
+SENSITIVITY = "prcc"
+
 OPTIMIZATIONS = ("random-cd",)
 # random-cd takes ~3 s for 1,000 points and grows faster than linearly; every `sweep.load`
 # expands the design, so larger optimised samples are refused rather than left to stall

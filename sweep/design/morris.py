@@ -27,6 +27,9 @@ import numpy as np
 from sweep.design import Design, levels, rng, sampled
 from sweep.errors import SpecError
 
+#: the sensitivity method a sweep of this design gets (one-at-a-time trajectories: elementary effects (Morris 1991; Campolongo et al. 2007))
+SENSITIVITY = "morris"
+
 DEFAULT_LEVELS = 4
 DISTRIBUTIONS = ("uniform", "log-uniform")
 _KEYS = ("kind", "trajectories", "levels", "vary", "conditions")

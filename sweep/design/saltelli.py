@@ -25,6 +25,9 @@ import numpy as np
 from sweep.design import Design, levels, rng, sampled
 from sweep.errors import SpecError
 
+#: the sensitivity method a sweep of this design gets (the Saltelli cross-sampled matrices: Sobol indices (Saltelli 2002))
+SENSITIVITY = "sobol"
+
 _KEYS = ("kind", "base_samples", "second_order", "vary", "conditions")
 
 

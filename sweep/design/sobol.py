@@ -22,6 +22,9 @@ from scipy.stats import qmc
 
 from sweep.design import Design, levels, rng, sampled
 
+#: the sensitivity method a sweep of this design gets (points spread over the space: partial rank correlation (Marino et al. 2008))
+SENSITIVITY = "prcc"
+
 _KEYS = ("kind", "points", "vary", "conditions")
 
 

@@ -30,6 +30,9 @@ from sweep.spec import inputs, limits
 from sweep.design import Design, levels
 from sweep.errors import SpecError
 
+#: the sensitivity method a sweep of this design gets (points spread over the space: partial rank correlation (Marino et al. 2008))
+SENSITIVITY = "prcc"
+
 _KEYS = ("kind", "file", "vary")
 
 

@@ -168,7 +168,7 @@ def _finished(result: TaskResult, record: Record, packer: Packer, tally: Tally, 
         tally.numerical += b.failed
         progress.done += 1
         progress.events += b.events
-    packer.learn(result.kernel_seconds, len(result.blocks))
+    packer.learn(result.seconds, len(result.blocks))  # the worker's whole time: writes count too
     if budget is not None:
         budget.record(result.seconds)
 

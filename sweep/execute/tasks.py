@@ -39,9 +39,10 @@ def replicate_seeds(root: int, point: int, start: int, stop: int) -> list[np.ran
 
 
 class Packer:
-    """How many blocks go into one task: enough that a task is worth ``target`` seconds of kernel time.
+    """How many blocks go into one task: enough that a task is worth ``target`` seconds of a worker's time.
 
-    Starts at one block a task, learns the kernel seconds per block from finished tasks, and
+    Starts at one block a task, learns the seconds per block from finished tasks (kernel and
+    writes: a block of tiny replicates costs its chunk writes, not its kernel time), and
     packs accordingly, never more than ``most`` blocks (a bound on a task's memory). A block's
     bytes do not depend on its task, so packing changes how fast a sweep runs, never what it
     writes. ``fixed`` packs a set number instead (tests compare packings with it).
@@ -61,8 +62,8 @@ class Packer:
         wanted = math.ceil(round(self.target / per_block, 9))  # round: 0.2 / 0.002 must give 100, not 101
         return int(min(self.most, max(1, wanted)))
 
-    def learn(self, kernel_seconds: float, blocks: int) -> None:
-        self._seconds += kernel_seconds
+    def learn(self, seconds: float, blocks: int) -> None:
+        self._seconds += seconds
         self._blocks += blocks
 
 

@@ -17,6 +17,7 @@ from zarr.codecs import Crc32cCodec
 
 from sweep.errors import StoreError
 from sweep.store import durable
+from sweep.store.chunks import remove_stale
 from sweep.store.layout import (CHECKSUMS, DATA_ARRAYS, DamagedDone, _WRITE_EMPTY, _array, _checksums_array,
                                 _now, brief, consolidate)
 from sweep.store.records import mark as _mark_recorded
@@ -70,6 +71,7 @@ def _write_block_with_zarr(root: Path, point: int, start: int, stop: int, result
         if not durable.inside(target.parent, root):
             raise StoreError(f"{root}: {target.parent.relative_to(root)} leads out of the store through a "
                              "symlink; refusing to write there")
+        remove_stale(target)
         array[point, start:stop] = values
         _fsync_chunk(root, target)
         sums.append(trailing_checksum(target) if has_checksums(array) else 0)
@@ -124,15 +126,21 @@ def _fsync_chunk(path: Path, target: Path) -> None:
 
 
 def remove_partials(path: Path) -> int:
-    """Delete temporary chunk files (``*.partial``) left by writers killed mid-write.
+    """Delete temporary files (``*.partial``) left by writers killed mid-write, where the client writes.
 
-    zarr writes a chunk to ``<key>.<uuid>.partial`` and renames it; a SIGKILL between the
-    two leaves the temporary file, which readers ignore but listings show.
+    zarr writes a chunk to ``<key>.<uuid>.partial`` and renames it; a SIGKILL between the two
+    leaves the temporary file, which readers ignore but listings show. Here: the store's own
+    files and the arrays only the client writes (``done``, ``checksums``, coordinates). A data
+    chunk's leftovers belong to a task that never completed, and the writer that runs it again
+    removes them (``sweep.store.chunks``), so a resume need not list every folder of the store.
     """
     removed = 0
-    for leftover in path.rglob("*.partial"):
-        leftover.unlink(missing_ok=True)
-        removed += 1
+    folders = [path] + [path / name for name in ("done", CHECKSUMS, "time", "species", "param", "params")]
+    for folder in folders:
+        leftovers = folder.rglob("*.partial") if folder != path else folder.glob("*.partial")
+        for leftover in leftovers:
+            leftover.unlink(missing_ok=True)
+            removed += 1
     return removed
 
 

@@ -167,6 +167,7 @@ class ChunkWriter:
         relative = f"{name}/{array.key(point, block)}"
         target = self.root / relative
         self._folder(target.parent)
+        remove_stale(target)
         tmp = target.with_name(f"{target.name}.{uuid.uuid4().hex}.partial")  # as zarr names its own
         fd = os.open(tmp, _FLAGS, 0o644)
         try:
@@ -226,6 +227,26 @@ class ChunkWriter:
             raise StoreError(f"{self.root}: {folder.relative_to(self.root)} leads out of the store through a "
                              "symlink; refusing to write there")
         self._known_dirs.add(key)
+
+
+def remove_stale(target: Path) -> int:
+    """Delete the temporary files a killed writer left for this chunk (``<name>.<uuid>.partial``).
+
+    A chunk has one writer at a time (its task), and a task writes each chunk once, so any such
+    file beside it is a dead writer's; it is removed before the chunk is written again.
+    """
+    removed = 0
+    prefix = target.name + "."
+    try:
+        entries = list(os.scandir(target.parent))
+    except FileNotFoundError:
+        return 0
+    for entry in entries:
+        if entry.name.startswith(prefix) and entry.name.endswith(".partial"):
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(entry.path)
+                removed += 1
+    return removed
 
 
 @contextlib.contextmanager

@@ -30,8 +30,18 @@ if TYPE_CHECKING:
     from sweep.spec import Spec
 
 
+SYMLINK_DEPTH = 3  # store/<array>/c/<point>: the levels a resume checks; deeper ones, the writer
+
+
 def refuse_symlinks(path: Path) -> None:
-    """Refuse a store that holds a symlink anywhere (writes would follow it out of the store).
+    """Refuse a store that holds a symlink in its top levels (writes would follow it out of the store).
+
+    The check reads directory entries only (their type comes with the listing: no stat per
+    entry) down to ``SYMLINK_DEPTH``: the store's files, each array's folder, its ``c`` folder
+    and every point's folder under it, and the shards' records. A link deeper down (a replicate
+    block's folder) is refused by the writer, which resolves every folder it writes into and
+    opens files with ``O_NOFOLLOW`` (``sweep.store.chunks``); so a resume of a store of 100,000
+    points need not list its million folders.
 
     Raises
     ------
@@ -40,13 +50,23 @@ def refuse_symlinks(path: Path) -> None:
     """
     if path.is_symlink():
         return  # the store's own path may be a link the user made; what is inside may not
-    for root, dirs, files in os.walk(path):
-        for name in dirs + files:
-            entry = Path(root) / name
-            if entry.is_symlink():
-                raise StoreError(f"{path}: {entry.relative_to(path)} is a symlink; a store must hold only its own "
-                                 "files (writes would follow the link out of the store); remove the link, or use "
-                                 "another --store")
+    level = [(str(path), "")]
+    for _ in range(SYMLINK_DEPTH):  # lists the folders above the deepest level checked
+        below = []
+        for folder, relative in level:
+            try:
+                entries = list(os.scandir(folder))
+            except (FileNotFoundError, NotADirectoryError):
+                continue
+            for entry in entries:
+                name = f"{relative}{entry.name}"
+                if entry.is_symlink():
+                    raise StoreError(f"{path}: {name} is a symlink; a store must hold only its own files (writes "
+                                     "would follow the link out of the store); remove the link, or use another "
+                                     "--store")
+                if entry.is_dir(follow_symlinks=False):
+                    below.append((entry.path, f"{name}/"))
+        level = below
 
 
 def check_same_sweep(spec: Spec, points: np.ndarray) -> None:

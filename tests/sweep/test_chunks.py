@@ -119,3 +119,14 @@ def test_group_commits_in_threads_of_one_worker_stay_apart(tmp_path):
         for b in range(4):
             assert (counts[point, 10 * b:10 * b + 10] == point * 10 + b).all()
     assert not list(ours.rglob("*.partial"))
+
+
+def test_a_dead_writers_partial_goes_when_its_chunk_is_written_again(tmp_path):
+    """A resume lists no folder of the store's data: the next writer of a chunk tidies its leftovers."""
+    _, ours = _twin_stores(tmp_path, "int32")
+    folder = ours / "status" / "c" / "0"
+    folder.mkdir(parents=True)
+    (folder / "0.0123abcd.partial").write_bytes(b"torn")  # a writer killed before its rename
+    (folder / "1.0123abcd.partial").write_bytes(b"torn")  # another chunk's: left for its own writer
+    store.write_block(ours, 0, 0, 10, _block(3), store_id="x")
+    assert sorted(p.name for p in folder.iterdir()) == ["0", "1.0123abcd.partial"]
