@@ -14,10 +14,12 @@ from pathlib import Path
 from typing import Callable, Iterator
 
 from sweep.execute.execution import Execution
-from sweep.fit import records
+from sweep.fit import records, smc
 from sweep.fit.engine import SweepEvaluator, with_client
 from sweep.fit.loop import Outcome, fit as fit_loop
 from sweep.fit.spec import FitSpec
+
+PREDICTIVE = 2  # spawn-key kind of the posterior predictive draws (0: proposals, 1: batch seeds)
 
 
 @dataclass(frozen=True)
@@ -27,6 +29,7 @@ class FitSummary:
     seconds: float
     simulating_seconds: float  # inside the batches' sweeps (pool start excluded)
     simulations_run: int  # trajectories simulated by this process (a resumed fit: fewer than in total)
+    predictive: dict | None = None  # component index -> pooled simulated values of posterior draws
 
     @property
     def posterior_path(self) -> Path:
@@ -39,7 +42,7 @@ def labels(fit: FitSpec) -> tuple[str, ...]:
 
 
 def run(fit: FitSpec, execution: Execution | None = None, *, fresh: bool = False,
-        on_round: Callable | None = None, on_batch: Callable | None = None) -> FitSummary:
+        on_round: Callable | None = None, on_batch: Callable | None = None, draws: int = 20) -> FitSummary:
     """Run the fit to a stop rule (resuming whatever its folder holds) and write ``posterior.zarr``.
 
     Raises
@@ -60,9 +63,26 @@ def run(fit: FitSpec, execution: Execution | None = None, *, fresh: bool = False
     with _pool(execution, fit.store) as batch_execution:
         evaluator = SweepEvaluator(fit, folder, batch_execution, on_batch)
         outcome = fit_loop(fit.settings, fit.prior, evaluator, folder, on_round)
+        predictive = _predictive(fit, evaluator, outcome, draws) if draws else None
     records.write(records.posterior_dataset(outcome.populations, fit.prior.names, labels(fit), outcome.stopped,
                                             outcome.simulations), fit.store / "posterior.zarr")
-    return FitSummary(outcome, fit.store, time.perf_counter() - began, evaluator.seconds, evaluator.simulations)
+    return FitSummary(outcome, fit.store, time.perf_counter() - began, evaluator.seconds, evaluator.simulations,
+                      predictive)
+
+
+def _predictive(fit: FitSpec, evaluator: SweepEvaluator, outcome: Outcome, draws: int) -> dict:
+    """Simulate ``draws`` particles drawn from the posterior (``<folder>/predictive``, a sweep store)."""
+    post = outcome.posterior
+    rng = smc.stream(fit.settings.seed, PREDICTIVE, 0, 0)
+    chosen = rng.choice(post.theta.shape[0], size=draws, p=post.weight / post.weight.sum())
+    seed = smc.batch_seed(fit.settings.seed, PREDICTIVE, 0)
+    counts, status = evaluator.simulate(post.theta[chosen], fit.store / "predictive", seed)
+    names = fit.condition_names
+    out = {}
+    for k, comp in enumerate(fit.observed.components):
+        c = names.index(comp.condition)
+        out[k] = counts[:, c, :, k][status[:, c, :] == 0]
+    return out
 
 
 @contextlib.contextmanager

@@ -50,16 +50,27 @@ class SweepEvaluator:
         self.simulations = 0
         self.seconds = 0.0
 
-    def batch_spec(self, batch: Batch):
-        """Write the batch's spec and table (same bytes on every rerun) and load it."""
+    def simulate(self, theta: np.ndarray, folder: Path, seed: int) -> tuple[np.ndarray, np.ndarray]:
+        """Run (or resume) the sweep of ``theta`` x conditions in ``folder``.
+
+        Returns counts (particle, condition, replicate, component) at each observed component's
+        time and species, and status (particle, condition, replicate).
+        """
         import sweep
 
-        folder = self.folder.batch_dir(batch.round, batch.index)
         folder.mkdir(parents=True, exist_ok=True)
-        _replace(folder / "points.csv", self.table(batch.theta[batch.inside]))
-        seed = batch_seed(self.fit.settings.seed, batch.round, batch.index)
+        _replace(folder / "points.csv", self.table(theta))
         _replace(folder / "spec.toml", self.fit.batch_text(seed, (folder / "sims.zarr").resolve(), "points.csv"))
-        return sweep.load(folder / "spec.toml")
+        spec = sweep.load(folder / "spec.toml")
+        summary = sweep.run(spec, self.execution, on_progress=self.on_batch)
+        if not summary.complete:
+            raise Incomplete(summary, f"{folder} stopped: {summary.stopped or f'{len(summary.failed)} tasks failed'}")
+        self.seconds += summary.seconds
+        # trajectories this process simulated (a resumed sweep: only its blocks not done before)
+        self.simulations += theta.shape[0] * self.per_candidate * summary.tasks_run // max(summary.tasks_total, 1)
+        counts, status = _read(spec.store, self.fit, self.fit.observed.components, self.species)
+        k = len(self.fit.conditions)
+        return counts.reshape(theta.shape[0], k, *counts.shape[1:]), status.reshape(theta.shape[0], k, -1)
 
     def table(self, theta: np.ndarray) -> str:
         fixed = dict(self.fit.sweep.fixed)
@@ -73,10 +84,7 @@ class SweepEvaluator:
         return "\n".join(lines) + "\n"
 
     def evaluate(self, batch: Batch) -> Evaluated:
-        import sweep
-
         m = batch.theta.shape[0]
-        k_cond = len(self.fit.conditions)
         observed = self.fit.observed.components
         distance = np.full(m, np.inf)
         components = np.full((m, len(observed)), np.inf)
@@ -84,16 +92,8 @@ class SweepEvaluator:
         inside = np.flatnonzero(batch.inside)
         if inside.size == 0:
             return Evaluated(distance, components, unfinished)
-        spec = self.batch_spec(batch)
-        summary = sweep.run(spec, self.execution, on_progress=self.on_batch)
-        if not summary.complete:
-            raise Incomplete(summary, f"batch {batch.index} of round {batch.round} stopped: "
-                             f"{summary.stopped or f'{len(summary.failed)} tasks failed'}")
-        self.simulations += inside.size * self.per_candidate
-        self.seconds += summary.seconds
-        counts, status = _read(spec.store, self.fit, observed, self.species)
-        counts = counts.reshape(inside.size, k_cond, *counts.shape[1:])
-        status = status.reshape(inside.size, k_cond, -1)
+        seed = batch_seed(self.fit.settings.seed, batch.round, batch.index)
+        counts, status = self.simulate(batch.theta[inside], self.folder.batch_dir(batch.round, batch.index), seed)
         names = self.fit.condition_names
         sims, finished = [], []
         for comp_index, comp in enumerate(observed):
