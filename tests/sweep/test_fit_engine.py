@@ -125,3 +125,19 @@ def test_sigkill_then_resume_gives_the_same_posterior(tmp_path):
                           capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stdout + done.stderr
     _same(_posterior(ref), _posterior(killed))
+
+
+def test_dry_run_estimates_without_running(tmp_path):
+    spec = _write(tmp_path)
+    result = CliRunner().invoke(app, ["fit", str(spec), "--dry-run", "--workers", "2"])
+    assert result.exit_code == 0, result.output
+    assert "trajectories" in result.output and not (tmp_path / "fit").exists()
+
+
+def test_folder_of_another_fit_is_refused(tmp_path):
+    spec = _write(tmp_path, particles=4, rounds=1)
+    runner = CliRunner()
+    assert runner.invoke(app, ["fit", str(spec), "--serial"]).exit_code == 0
+    spec.write_text(spec.read_text().replace("seed = 11", "seed = 12"), encoding="utf-8")
+    result = runner.invoke(app, ["fit", str(spec), "--serial"])
+    assert result.exit_code == 2 and "another spec" in " ".join(result.output.split()), result.output
