@@ -72,7 +72,7 @@ def _commands() -> typer.Typer:
     import typer
     from typer.core import TyperGroup
 
-    from sweep.cli import (analyzing, bench, exporting, inspect, models, planning, plotting, running, setup,
+    from sweep.cli import (analyzing, bench, exporting, fitting, inspect, models, planning, plotting, running, setup,
                            submitting, tracing)
 
     class Commands(TyperGroup):
@@ -113,6 +113,7 @@ def _commands() -> typer.Typer:
     app.command("export-model")(models.export_model)
     app.command("bench")(bench.bench)
     app.command("submit")(submitting.submit)
+    app.command("fit")(fitting.fit)
     return app
 
 

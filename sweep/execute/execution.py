@@ -8,7 +8,7 @@ flags that do not fit the backend it picked, so nothing is silently ignored.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from sweep.batch.settings import ClusterConfig
@@ -41,6 +41,10 @@ class Execution:
         Kernel time a task should be worth; small points are packed into one task until it is.
     pack : int, optional
         A fixed number of blocks per task instead (tests compare packings with it).
+    client : distributed.Client, optional
+        An open client to run on (``"scheduler"``), left open afterwards: ``sweep fit`` keeps
+        one cluster across its rounds instead of starting one per round. ``slots``: the tasks
+        it can run at once (default: its workers now).
 
     Example
     -------
@@ -58,6 +62,8 @@ class Execution:
     break_lock: bool = False
     pack_seconds: float = PACK_SECONDS
     pack: int | None = None
+    client: Any = None
+    slots: int | None = None
 
     @classmethod
     def choose(cls, *, workers: int | None = None, scheduler: str | None = None,

@@ -39,7 +39,11 @@ def is_file(address: str) -> bool:
 
 @contextmanager
 def pool(execution: Execution, store: Path) -> Iterator[DaskPool]:
-    """The run loop's pool: the workers of the scheduler at ``execution.address``."""
+    """The run loop's pool: the workers of the scheduler at ``execution.address`` (or of ``execution.client``)."""
+    if execution.client is not None:  # kept open by the caller across runs (sweep fit's rounds)
+        workers = len(execution.client.scheduler_info(n_workers=-1)["workers"])
+        yield DaskPool(execution.client, slots=execution.slots or workers)
+        return
     with connect(execution.address) as client:
         yield DaskPool(client, slots=len(client.scheduler_info(n_workers=-1)["workers"]))
 
