@@ -44,8 +44,8 @@ Choices, in the order a user meets them:
   consumes depend only on its own path, never on the other replicates of its block.
 - **Outputs.** ``events`` is the number of steps taken. ``max_events`` caps the steps: a
   replicate that needs more stops with status 1 and its later samples are -1. A state that
-  becomes non-finite (overflow, NaN) gives status 2 and all its samples -1, as in the direct
-  method.
+  becomes non-finite (overflow, NaN), or a total propensity that is infinite, gives status 2
+  and all its samples -1, as in the direct method.
 """
 
 from __future__ import annotations
@@ -189,6 +189,9 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
                 a0 += a[j]
             if a0 == 0.0:
                 absorbed = True  # no drift and no noise: the state can never change again
+                break
+            if not a0 < np.inf:
+                status = STATUS_NUMERICAL  # an infinite propensity: the step means nothing
                 break
             if n_ev >= max_events:
                 status = STATUS_EVENT_CAP

@@ -8,7 +8,10 @@ a0 is kept incrementally and re-summed every 1024 events to stop rounding drift.
 The state recorded at sample time t is the state after the last event at or before t.
 A replicate whose total propensity reaches zero holds its state to the end. A replicate
 that reaches ``max_events`` before the end stops with status 1 and samples after the
-stop are -1 (unknown), as are all samples of a replicate that failed (status 2).
+stop are -1 (unknown), as are all samples of a replicate that failed (status 2): a count
+that went negative or beyond int32, or a total propensity a0 that is infinite or NaN (a
+huge rate constant times large counts, a law dividing by zero or overflowing), checked
+once per event on a0.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ from kernels.ratelaw import addresses, call_law
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
+_INF = np.inf
 _RESUM_MASK = 1023  # a0 is re-summed when the event count is a multiple of 1024
 
 # Propensity kinds of mass-action reactions. The common shapes get a branch of their own;
@@ -202,11 +206,15 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     n_ev = 0
     status = 0
     while True:
-        if a0 <= 0.0:
-            # the incremental sum may be off by rounding: decide on the exact sum
+        if not (a0 > 0.0 and a0 < _INF):
+            # the incremental sum may be off by rounding (<= 0), or a propensity is infinite or
+            # NaN: decide on the exact sum
             a0 = 0.0
             for j in range(n_r):
                 a0 += a[j]
+            if not a0 < _INF:
+                status = STATUS_NUMERICAL  # infinite or NaN: no time step can be drawn
+                break
             if a0 <= 0.0:
                 break  # nothing can fire: hold the state to the end
         r, s0, s1, s2, s3 = next_words(s0, s1, s2, s3)

@@ -22,7 +22,9 @@ Sampling and stopping follow ``kernels.direct`` exactly: the state recorded at s
 state after the last event at or before t; a replicate whose propensities are all zero (every
 tau_j = +inf) holds its state to the end; a replicate reaching ``max_events`` before the end stops
 with status 1 and later samples -1; a negative count (or one beyond int32) is status 2 with every
-sample -1. Propensities are recomputed from the state (never accumulated), so nothing drifts.
+sample -1, and so is an infinite or NaN propensity: a reaction whose propensity is infinite gets the
+current time as its firing time, so it fires next, and the propensity of the reaction that fires is
+checked once per event. Propensities are recomputed from the state (never accumulated), so nothing drifts.
 
 Propensities are the mass-action combinations of ``kernels.direct.propensity``, read from the same
 packed program (``kernels.direct._program``), built from a dependency graph without self-loops: the
@@ -50,6 +52,7 @@ from kernels.ratelaw import addresses
 from kernels.rng import next_words, seed_states, to_open0, to_unit
 
 _INT32_MAX = 2**31 - 1
+_INF = np.inf
 
 # Unsigned indices and typed constants for the same reason as in kernels.direct: numba then
 # skips the negative-index wraparound on every heap access.
@@ -265,6 +268,9 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
             status = STATUS_EVENT_CAP
             break
         mu = hr[0]
+        if not a[mu] < _INF:
+            status = STATUS_NUMERICAL  # infinitely fast (or NaN): its firing time means nothing
+            break
         b = np.uint64(prog[mu])
         q = b + _U2
         end = q + _U2 * np.uint64(prog[b])

@@ -26,7 +26,8 @@ Choices:
   of right-hand-side evaluations. ``max_events`` caps them: a solve that needs more stops with
   status 1, and as ``solve_ivp`` returns nothing from an aborted solve, every sample after t = 0
   is then -1. A solver failure (``success`` false) or a non-finite value, including a
-  right-hand side that overflows in a finite-time blow-up, gives status 2 and all samples -1.
+  right-hand side that overflows in a finite-time blow-up and a rate that is infinite or NaN
+  (even of a reaction that changes nothing), gives status 2 and all samples -1.
   When every rate is 0 at x0 the state is an equilibrium and is returned without calling the
   solver (``events`` 0), as the stochastic methods hold a state whose propensities are all 0.
 """
@@ -73,9 +74,14 @@ def _rate_law(scaled, law_mask, rates, law, reactant_idx, reactant_mult, x, a):
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def _rhs(x, scaled, law_mask, rates, law, reactant_idx, reactant_mult, change_idx, change_val):
-    """dx/dt = sum_j nu_j a_j(x)."""
+    """dx/dt = sum_j nu_j a_j(x); all NaN when a rate is infinite or NaN."""
     a = np.empty(scaled.shape[0])
     _rate_law(scaled, law_mask, rates, law, reactant_idx, reactant_mult, x, a)
+    total = 0.0
+    for j in range(scaled.shape[0]):
+        total += a[j]
+    if not total < np.inf:
+        return np.full(x.shape[0], np.nan)
     dx = np.zeros(x.shape[0])
     for j in range(scaled.shape[0]):
         for l in range(change_idx.shape[1]):
@@ -178,6 +184,9 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     a = np.empty(scaled.shape[0])
     _rate_law(scaled, network.law_mask, rates, addresses(network)[1], network.reactant_idx,
               network.reactant_mult, x0, a)
+    if not np.isfinite(a).all():
+        row[:] = -1.0
+        return row, STATUS_NUMERICAL, 0
     if not later.any() or not a.any():
         return row, 0, 0  # nothing to integrate, or x0 is an equilibrium (every rate is 0 there)
     # solve_ivp wants strictly increasing t_eval: solve on the distinct times, then spread back

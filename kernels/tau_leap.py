@@ -35,8 +35,8 @@ rejection method for generating Poisson random variables", Insurance: Mathematic
 12:39-45, 1993).
 
 ``events`` counts **steps**: accepted leaps plus exact steps (rejected leaps are not counted), and
-``max_events`` caps them. Status 1 means the step cap was reached (later samples -1); status 2 only a
-count beyond int32 (all samples -1). The error-control parameter eps cannot come through the shared
+``max_events`` caps them. Status 1 means the step cap was reached (later samples -1); status 2 a count
+beyond int32 or a total propensity that is infinite or NaN (all samples -1). The error-control parameter eps cannot come through the shared
 ``simulate`` signature: it is the keyword ``epsilon`` (default ``DEFAULT_EPSILON``).
 
 Tau-leaping is approximate: see tests/kernels/test_tau_leap.py for the measured accuracy. Means are
@@ -246,6 +246,8 @@ def _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st, out,
     n_t = times.shape[0]
     for _ in range(n_steps):
         a0 = _propensities(prog, rates, law, x, a)
+        if not a0 < np.inf:
+            return t, k, steps, STATUS_NUMERICAL, True  # infinite or NaN: no step can be drawn
         if a0 <= 0.0:
             return t, k, steps, 0, True
         t_new = t - np.log(uniform_open0(st)) / a0
@@ -314,6 +316,9 @@ def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st,
         if status != 0 or k == n_t:
             break
         a0 = _propensities(prog, rates, law, x, a)
+        if not a0 < np.inf:
+            status = STATUS_NUMERICAL  # infinite or NaN: no leap (and no Poisson number) means anything
+            break
         if a0 <= 0.0:
             break  # absorbing: hold the state to the end
         a0c, a0n = _critical(x, a, change_idx, change_val, N_CRITICAL, critical)

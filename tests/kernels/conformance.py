@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 
 import kernels
+from hang_bound import time_bound
 from kernels.network import KernelResult, Network
 from sweep.model import compile_network, initial_counts, parse_model, rate_constants
 
@@ -63,6 +64,34 @@ def mixed_network() -> Case:
                   "unbind": ("C -> A + B", 0.5),
                   "trimer_loss": ("3 B -> 0", 0.01),
                   "b_loss": ("B -> 0", 0.2)})
+
+
+def infinite_propensity(kind: str) -> Case:
+    """Models whose propensity becomes infinite: at t = 0, or later as a count grows.
+
+    - ``mass_action``: c = 1e308 times 1000 x 1000 molecules overflows to inf;
+    - ``divide_by_zero``: the law k / (A - A);
+    - ``overflow``: the law 1e300 * 1e300 * A (each number finite, the product not);
+    - ``later``: the law 1e-3 exp(10 C) is finite at C = 0 and infinite once C reaches 71: an
+      inflow adds 100 C at a time (twice per time unit on average).
+    """
+    tables = {
+        "mass_action": ({"A": 1000, "B": 1000, "C": 0}, {"c": 1e308},
+                        {"bind": {"reaction": "A + B -> C", "rate": "c"}, "loss": {"reaction": "C -> 0", "rate": 1.0}}),
+        "divide_by_zero": ({"A": 10, "B": 0}, {"k": 1.0},
+                           {"r": {"reaction": "A -> B", "propensity": "k / (A - A)"},
+                            "back": {"reaction": "B -> A", "rate": 1.0}}),
+        "overflow": ({"A": 10, "B": 0}, {},
+                     {"r": {"reaction": "A -> B", "propensity": "1e300 * 1e300 * A"},
+                      "back": {"reaction": "B -> A", "rate": 1.0}}),
+        "later": ({"B": 0, "C": 0}, {},
+                  {"in": {"reaction": "0 -> 100 C", "rate": 2.0},
+                   "r": {"reaction": "0 -> B", "propensity": "1e-3 * exp(10 * C)"}}),
+    }
+    species, params, reactions = tables[kind]
+    model = parse_model({"species": species, "parameters": params, "reactions": reactions}, "<test>")
+    values = model.parameter_values
+    return Case(compile_network(model), rate_constants(model, values), initial_counts(model, values))
 
 
 class KernelConformance:
@@ -178,3 +207,15 @@ class KernelConformance:
         assert (res.status == 0).all()
         assert (res.events == 0).all()
         np.testing.assert_array_equal(res.counts, np.broadcast_to(case.x0, (5, 11, 3)))
+
+    @pytest.mark.parametrize("kind", ["mass_action", "divide_by_zero", "overflow", "later"])
+    def test_infinite_propensity_is_a_numerical_failure(self, kernel, kind):
+        # an infinite (or NaN) propensity has no meaningful next event or step: status 2 with every
+        # sample -1, promptly, instead of a hang (tau-leaping looped forever on a NaN Poisson mean)
+        # or garbage (the next reaction method fired an infinitely fast reaction at one instant)
+        case = infinite_propensity(kind)
+        # generous: the first call compiles the kernel and the law
+        with time_bound(120, f"{self.method} on an infinite propensity ({kind})"):
+            res = self.run(kernel, case, np.linspace(0.0, 5.0, 6), seeds(3), max_events=10_000_000)
+        assert (res.status == 2).all(), res.status
+        assert (res.counts == -1).all()
