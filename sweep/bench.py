@@ -15,8 +15,14 @@ Two more are there for the other methods: a 100-reaction chain (many reactions, 
 event: the next reaction method's case, Gibson & Bruck 2000) and gene expression at ~10^4
 proteins (high copy numbers: tau-leaping's case, Cao, Gillespie & Petzold 2006).
 
+Three measure custom rate laws against the same networks in mass action: ``gene_expression_law``
+(``gene_expression`` with every propensity written as an expression, ``"kp * M"``, the same process
+bit for bit), ``self_repressor`` (a gene repressing itself through ``hill_down(P, vmax, K, n)`` with
+n = 2, the textbook negative autoregulation; Hill 1910 for the law) and ``self_repressor_constant``
+(the same network with the Hill law replaced by the constant vmax / 2, its value at P = K).
+
 Any registered method can be measured. For a method whose ``events`` are not reaction
-events (tau-leaping counts steps; the kernel module says so in ``EVENT_UNIT``), the
+events (tau-leaping counts steps; its registry record says so in ``events``), the
 figures are per step, so compare methods by ``replicates_per_cpu_second``; the
 time-averaged ``mean_counts`` of the same replicates show what an approximate method
 gives for that speed.
@@ -42,6 +48,21 @@ def _chain(n: int, spread: bool = False) -> dict:
         reactions[f"f{i}"] = {"reaction": f"S{i} -> S{i + 1}", "rate": 1.0}
         reactions[f"b{i}"] = {"reaction": f"S{i + 1} -> S{i}", "rate": 1.0}
     return {"species": species, "reactions": reactions}
+
+
+def _gene_expression_law() -> dict:
+    rates = {"km": 10.0, "gm": 1.0, "kp": 10.0, "gp": 0.1}
+    laws = {"tx": ("0 -> M", "km"), "dm": ("M -> 0", "gm * M"), "tl": ("M -> M + P", "kp * M"),
+            "dp": ("P -> 0", "gp * P")}
+    return {"species": {"M": 0, "P": 0}, "parameters": rates,
+            "reactions": {name: {"reaction": eq, "propensity": law} for name, (eq, law) in laws.items()}}
+
+
+def _self_repressor(constant: bool) -> dict:
+    make = ({"reaction": "0 -> P", "rate": "half"} if constant
+            else {"reaction": "0 -> P", "propensity": "hill_down(P, vmax, K, n)"})
+    return {"species": {"P": 0}, "parameters": {"vmax": 30.0, "K": 10.0, "n": 2.0, "g": 1.0, "half": 15.0},
+            "reactions": {"make": make, "decay": {"reaction": "P -> 0", "rate": "g"}}}
 
 
 NETWORKS: dict[str, tuple[dict, float]] = {
@@ -72,6 +93,9 @@ NETWORKS: dict[str, tuple[dict, float]] = {
                                            "dm": {"reaction": "M -> 0", "rate": 1.0},
                                            "tl": {"reaction": "M -> M + P", "rate": 10.0},
                                            "dp": {"reaction": "P -> 0", "rate": 0.1}}}, 200.0),
+    "gene_expression_law": (_gene_expression_law(), 1000.0),
+    "self_repressor": (_self_repressor(False), 1000.0),
+    "self_repressor_constant": (_self_repressor(True), 1000.0),
 }
 
 
@@ -107,7 +131,7 @@ def measure(method: str = "direct", networks: Iterable[str] | None = None, repea
         If ``method`` is not a registered kernel or a network is unknown.
     """
     kernel = _kernel(method)
-    unit = getattr(kernel, "EVENT_UNIT", "events")
+    unit = _unit(method)
     out = []
     for name in networks or NETWORKS:
         if name not in NETWORKS:
@@ -128,6 +152,12 @@ def _kernel(method: str):
     return kernels.get(method)
 
 
+def _unit(method: str) -> str:
+    import kernels
+
+    return kernels.record(method).events
+
+
 def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResult:
     """Kernel speed on the first point of a spec (its model, rates and time grid)."""
     import kernels
@@ -139,7 +169,7 @@ def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResul
     kernel = kernels.get(spec.method)
     return _measure_one(kernel.simulate, f"{Path(path).name} (point 0)", spec.method,
                         spec.model, spec.times[-1], repeats, min_seconds, len(spec.times), values, table,
-                        unit=getattr(kernel, "EVENT_UNIT", "events"))
+                        unit=_unit(spec.method))
 
 
 def _measure_one(simulate: Callable, name: str, method: str, model: Model, t_end: float,
