@@ -84,6 +84,8 @@ METHODS: dict[str, Method] = {
                      summary="Gillespie's direct method (Gillespie 1976, 1977)"),
     "nrm": Method("kernels.nrm", trace=True,
                   summary="next reaction method (Gibson & Bruck 2000)"),
+    "cr": Method("kernels.cr", trace=True,
+                 summary="composition-rejection (Slepoy, Thompson & Plimpton 2008), for large networks"),
     "tau_leap": Method("kernels.tau_leap", events="steps", exact=False,
                        options=MappingProxyType({"epsilon": "fraction"}),
                        summary="explicit tau-leaping (Cao, Gillespie & Petzold 2006)"),

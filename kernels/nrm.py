@@ -42,13 +42,10 @@ from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
-from llvmlite import ir
-from numba import types
-from numba.extending import intrinsic
 
 from kernels import blocks
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace
-from kernels.propensity import program, propensity
+from kernels.propensity import bits_float as _float, float_bits as _bits, program, propensity
 from kernels.rng import next_words, to_open0, to_unit
 
 if TYPE_CHECKING:
@@ -69,22 +66,6 @@ _U4 = np.uint64(4)
 # +inf included, IEEE 754 makes the integer order the numeric order. Every firing time is >= +0.0:
 # t starts at 0 and only adds non-negative terms, and the exponential sampler never returns -0.0.
 _INF_BITS = np.int64(0x7FF0000000000000)  # +inf
-
-
-@intrinsic
-def _bits(typingctx, value):
-    """The bit pattern of a float64 as an int64 (a register move, no memory round trip)."""
-    def codegen(context, builder, signature, args):
-        return builder.bitcast(args[0], ir.IntType(64))
-    return types.int64(types.float64), codegen
-
-
-@intrinsic
-def _float(typingctx, value):
-    """The float64 whose bit pattern is the given int64 (inverse of ``_bits``)."""
-    def codegen(context, builder, signature, args):
-        return builder.bitcast(args[0], ir.DoubleType())
-    return types.float64(types.int64), codegen
 
 
 # --- unit exponentials: the ziggurat of Marsaglia & Tsang (2000) ---------------------------------

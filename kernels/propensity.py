@@ -11,6 +11,9 @@ from __future__ import annotations
 
 import numba
 import numpy as np
+from llvmlite import ir
+from numba import types
+from numba.extending import intrinsic
 
 from kernels.ratelaw import call_law
 
@@ -32,6 +35,26 @@ _U1 = np.uint64(1)
 _U2 = np.uint64(2)
 _U3 = np.uint64(3)
 _U4 = np.uint64(4)
+
+
+@intrinsic
+def float_bits(typingctx, value):
+    """The bit pattern of a float64 as an int64 (a register move, no memory round trip).
+
+    For doubles >= +0.0, +inf included, IEEE 754 makes the integer order the numeric order, and
+    ``bits >> 52`` is the biased binary exponent.
+    """
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.IntType(64))
+    return types.int64(types.float64), codegen
+
+
+@intrinsic
+def bits_float(typingctx, value):
+    """The float64 whose bit pattern is the given int64 (inverse of ``float_bits``)."""
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.DoubleType())
+    return types.float64(types.int64), codegen
 
 
 @numba.njit(inline="always", cache=True, error_model="numpy")
