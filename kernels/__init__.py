@@ -128,10 +128,11 @@ def get(method: str) -> ModuleType:
 OPTIONS: dict[str, dict[str, Rule]] = {name: dict(m.options) for name, m in METHODS.items() if m.options}
 DETERMINISTIC: frozenset[str] = frozenset(name for name, m in METHODS.items() if m.deterministic)
 
-# Where each exact method is fastest, by the number of reactions (measured on the built-in chain
-# networks, NOTES-kernels.md): the direct method's search grows with R, the next reaction
-# method's heap with log R.
+# Where each exact method is fastest, by the number of reactions (measured on the built-in chain,
+# ring and random networks, NOTES-kernels.md): the direct method's search grows with R, the next
+# reaction method's heap with log R, composition-rejection's cost per event hardly at all.
 SUGGEST_NRM_FROM = 64
+SUGGEST_CR_FROM = 500  # from here ``sweep plan`` advises against the direct method
 
 
 def suggest(n_reactions: int) -> str:
@@ -139,10 +140,12 @@ def suggest(n_reactions: int) -> str:
 
     Example
     -------
-    >>> suggest(4), suggest(300)
-    ('direct', 'nrm')
+    >>> suggest(4), suggest(300), suggest(5000)
+    ('direct', 'nrm', 'cr')
     """
-    return "direct" if n_reactions < SUGGEST_NRM_FROM else "nrm"
+    if n_reactions < SUGGEST_NRM_FROM:
+        return "direct"
+    return "nrm" if n_reactions < SUGGEST_CR_FROM else "cr"
 
 
 def compiled(method: str, network: Network) -> bool:
