@@ -214,12 +214,12 @@ def method_advice(method: str, n_reactions: int) -> list[str]:
     """
     import kernels
 
-    better = kernels.suggest(n_reactions)
-    if method != "direct" or better == "direct" or n_reactions < kernels.SUGGEST_CR_FROM:
+    if method != "direct" or n_reactions < kernels.ADVISE_FROM:
         return []
     return [f"method 'direct' on {n_reactions:,} reactions: its reaction search costs time in proportion to "
-            f"the number of reactions; method '{better}' ({kernels.record(better).summary}) samples the same "
-            "process exactly at a cost per event that barely grows with it (sweep bench --large)"]
+            "the number of reactions; method 'nrm' or 'cr' (composition-rejection) samples the same process "
+            "exactly at a cost per event that grows far less (8-9x faster at 1,000 reactions, 13-43x at "
+            "10,000 on the built-in networks; sweep bench --large)"]
 
 
 def _spread(n_points: int, k: int) -> list[int]:
