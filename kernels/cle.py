@@ -13,7 +13,7 @@ Springer; weak order 1 in the step h)::
 
 Choices, in the order a user meets them:
 
-- **State.** Real-valued, so ``counts`` are float64 (``COUNTS_DTYPE``). A sample at time t is
+- **State.** Real-valued, so ``counts`` are float64 (the registry's ``counts``). A sample at time t is
   the state after the step that ends exactly at t.
 - **Step.** Each interval between consecutive sample times (the first starts at t = 0) is cut
   into ``ceil(span / dt)`` equal steps, so the step is at most ``dt`` and every sample falls on
@@ -51,17 +51,21 @@ Choices, in the order a user meets them:
 from __future__ import annotations
 
 import math
-from typing import Sequence
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
 
+from kernels import METHODS, blocks
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
-from kernels.ratelaw import addresses, call_law
+from kernels.propensity import law_value
 from kernels.rng import next_words, seed_states, to_unit
 
-COUNTS_DTYPE = np.float64
-EVENT_UNIT = "steps"  # what ``events`` counts for this method (for reports)
+if TYPE_CHECKING:
+    from kernels.blocks import Seeds
+
+# the registry's dtype, as the attribute sweep.store and sweep.plan read until they read the record
+COUNTS_DTYPE = METHODS["cle"].counts_dtype
 DEFAULT_STEPS_PER_INTERVAL = 20  # default dt = mean positive sample spacing / 20
 
 _CEIL_SLACK = 1.0 - 1e-12  # 0.5 / 0.025 = 20.000000000000004 must give 20 steps, not 21
@@ -155,18 +159,22 @@ def _step(reactant_idx, reactant_mult, change_idx, change_val, scaled, x, a, h, 
     return s0, s1, s2, s3, spare, have_spare
 
 
-@numba.njit(cache=True, nogil=True, error_model="numpy")
+@numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law, x0, times,
-             dt, state, max_events, out):
-    """Simulate one replicate into ``out`` (T, S); return (status, steps, clips)."""
+             dt, state, max_events, out, x, a):
+    """Simulate one replicate into ``out`` (T, S); return (status, steps, clips).
+
+    ``x`` (S,) and ``a`` (R,) are scratch; compiled without reference counting for the reason given
+    in ``kernels.direct._run_one``.
+    """
     n_r = scaled.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
     s0, s1, s2, s3 = state[0], state[1], state[2], state[3]
     spare = 0.0
     have_spare = False
-    x = x0.copy()
-    a = np.empty(n_r)
+    for s in range(n_s):
+        x[s] = x0[s]
     t = 0.0
     n_ev = 0
     clips = 0
@@ -183,7 +191,7 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
             a0 = 0.0
             for j in range(n_r):
                 if law is not None and law_mask[j]:
-                    a[j] = call_law(law, j, x, rates)
+                    a[j] = law_value(law, j, x, rates)
                 else:
                     a[j] = _propensity(j, scaled[j], reactant_idx, reactant_mult, x)
                 a0 += a[j]
@@ -225,15 +233,38 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law, x0, times,
-               dt, states, max_events, counts, status, events, clips):
-    """Run replicate i from ``states[i]`` into ``counts[i]``."""
+def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
+    """Run replicate i from ``states[i]`` into ``counts[i]``, its clips into ``aux[i]`` (no logs)."""
+    reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, dt = model
+    x = np.empty_like(x0)
+    a = np.empty(scaled.shape[0])
     for i in range(states.shape[0]):
         st, ev, cl = _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law,
-                              x0, times, dt, states[i], max_events, counts[i])
+                              x0, times, dt, states[i], max_events, counts[i], x, a)
         status[i] = st
         events[i] = ev
-        clips[i] = cl
+        aux[i] = cl
+
+
+# the functions between ``run`` and ``law_value``, compiled again with a model's laws inline
+LAW_PATH = (_run_one, run)
+
+
+def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray, *,
+            dt: float | None = None) -> tuple:
+    """The network's arrays, the scaled rate constants and the step.
+
+    Raises
+    ------
+    ValueError
+        If ``dt`` is given and is not a finite number > 0.
+    """
+    if dt is None:
+        dt = default_dt(times)
+    elif not (np.isfinite(dt) and dt > 0.0):
+        raise ValueError(f"dt must be a finite number > 0, got {dt!r}")
+    return (network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val,
+            _scaled_rates(network, rates[:network.n_reactions]), network.law_mask, float(dt))
 
 
 def default_dt(times: np.ndarray) -> float:
@@ -250,8 +281,7 @@ def default_dt(times: np.ndarray) -> float:
 
 
 def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-                        seeds: Sequence[np.random.SeedSequence], max_events: int, *,
-                        dt: float | None = None) -> tuple[KernelResult, np.ndarray]:
+                        seeds: Seeds, max_events: int, *, dt: float | None = None) -> tuple[KernelResult, np.ndarray]:
     """``simulate``, plus the number of negative components clipped to 0 per replicate (int64 (n,)).
 
     Raises
@@ -259,29 +289,11 @@ def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, tim
     ValueError
         If ``dt`` is given and is not a finite number > 0.
     """
-    rates = np.ascontiguousarray(rates, dtype=np.float64)
-    scaled = _scaled_rates(network, rates[:network.n_reactions])
-    x0 = np.ascontiguousarray(x0, dtype=np.float64)
-    times = np.ascontiguousarray(times, dtype=np.float64)
-    if dt is None:
-        dt = default_dt(times)
-    elif not (np.isfinite(dt) and dt > 0.0):
-        raise ValueError(f"dt must be a finite number > 0, got {dt!r}")
-    states = seed_states(seeds)
-    n = states.shape[0]
-    counts = np.empty((n, times.shape[0], x0.shape[0]), dtype=COUNTS_DTYPE)
-    status = np.empty(n, dtype=np.int8)
-    events = np.empty(n, dtype=np.int64)
-    clips = np.empty(n, dtype=np.int64)
-    _run_block(network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val,
-               scaled, network.law_mask, rates, addresses(network)[1], x0, times, float(dt), states,
-               int(max_events), counts, status, events, clips)
-    return KernelResult(counts, status, events), clips
+    return blocks.run("cle", network, rates, x0, times, seeds, max_events, dt=dt)
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Sequence[np.random.SeedSequence], max_events: int, *,
-             dt: float | None = None) -> KernelResult:
+             seeds: Seeds, max_events: int, *, dt: float | None = None) -> KernelResult:
     """Simulate one chemical Langevin path per seed (Euler–Maruyama, Gillespie 2000).
 
     Parameters
@@ -294,7 +306,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
         Initial state (molecule numbers; converted to float64).
     times : float64 (T,)
         Non-decreasing sample times, all >= 0.
-    seeds : sequence of SeedSequence
+    seeds : sequence of SeedSequence, or Streams
         One seed per replicate; replicate i draws only from ``seeds[i]``.
     max_events : int
         Cap on the number of time steps per replicate.

@@ -76,12 +76,6 @@ class KernelResult(NamedTuple):
     events: np.ndarray
 
 
-def empty_result(n: int, n_times: int, n_species: int, counts_dtype=np.int32) -> KernelResult:
-    """Uninitialised output arrays for ``n`` replicates, for a kernel to fill in place."""
-    return KernelResult(np.empty((n, n_times, n_species), dtype=counts_dtype),
-                        np.empty(n, dtype=np.int8), np.empty(n, dtype=np.int64))
-
-
 class Trace(NamedTuple):
     """Full event log of one replicate (for ``sweep trace`` and tests).
 

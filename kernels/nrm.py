@@ -26,8 +26,8 @@ sample -1, and so is an infinite or NaN propensity: a reaction whose propensity 
 current time as its firing time, so it fires next, and the propensity of the reaction that fires is
 checked once per event. Propensities are recomputed from the state (never accumulated), so nothing drifts.
 
-Propensities are the mass-action combinations of ``kernels.direct.propensity``, read from the same
-packed program (``kernels.direct._program``), built from a dependency graph without self-loops: the
+Propensities are the mass-action combinations of ``kernels.propensity.propensity``, read from the same
+packed program (``kernels.propensity.program``), built from a dependency graph without self-loops: the
 fired reaction is always updated on its own path, so the dependents' loop needs no ``d == mu`` test.
 
 Speed (see ``sweep.plan.bench``; 100-reaction chain): the time per event is a serial chain of a few
@@ -38,23 +38,23 @@ without a branch, and the unit exponential is drawn by a ziggurat one event ahea
 
 from __future__ import annotations
 
-from typing import Sequence
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
-from llvmlite import ir
-from numba import types
-from numba.extending import intrinsic
 
-from kernels.direct import _prepare, _program, propensity
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace, empty_result
-from kernels.ratelaw import addresses
-from kernels.rng import next_words, seed_states, to_open0, to_unit
+from kernels import blocks
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace
+from kernels.propensity import bits_float as _float, float_bits as _bits, program, propensity
+from kernels.rng import next_words, to_open0, to_unit
+
+if TYPE_CHECKING:
+    from kernels.blocks import Seeds
 
 _INT32_MAX = 2**31 - 1
 _INF = np.inf
 
-# Unsigned indices and typed constants for the same reason as in kernels.direct: numba then
+# Unsigned indices and typed constants for the same reason as in kernels.propensity: numba then
 # skips the negative-index wraparound on every heap access.
 _U0 = np.uint64(0)
 _U1 = np.uint64(1)
@@ -66,22 +66,6 @@ _U4 = np.uint64(4)
 # +inf included, IEEE 754 makes the integer order the numeric order. Every firing time is >= +0.0:
 # t starts at 0 and only adds non-negative terms, and the exponential sampler never returns -0.0.
 _INF_BITS = np.int64(0x7FF0000000000000)  # +inf
-
-
-@intrinsic
-def _bits(typingctx, value):
-    """The bit pattern of a float64 as an int64 (a register move, no memory round trip)."""
-    def codegen(context, builder, signature, args):
-        return builder.bitcast(args[0], ir.IntType(64))
-    return types.int64(types.float64), codegen
-
-
-@intrinsic
-def _float(typingctx, value):
-    """The float64 whose bit pattern is the given int64 (inverse of ``_bits``)."""
-    def codegen(context, builder, signature, args):
-        return builder.bitcast(args[0], ir.DoubleType())
-    return types.float64(types.int64), codegen
 
 
 # --- unit exponentials: the ziggurat of Marsaglia & Tsang (2000) ---------------------------------
@@ -209,13 +193,16 @@ def _update(ht, hr, pos, r, key):
 
 # --- the event loop -----------------------------------------------------------------------------
 
-@numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x):
+@numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
+def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x,
+             x, a, unused, ht, hr, pos):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
     ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. ``prog`` must be
     built from a dependency graph without self-loops. The ``log_*`` arrays are None (``simulate``:
     numba then compiles the logging away) or receive event times, reactions and post-event states.
+    ``x``, ``a``, ``unused``, ``ht``, ``hr``, ``pos`` are scratch (``run``); compiled without
+    reference counting for the reason given in ``kernels.direct._run_one``.
     """
     n_s = x0.shape[0]
     n_t = times.shape[0]
@@ -224,13 +211,13 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     s1 = state[1]
     s2 = state[2]
     s3 = state[3]
-    x = x0.copy()
-    a = np.empty(n_r)
-    unused = np.zeros(n_r)  # E_j, the unit-rate time kept while a_j = 0
-    size = 2 * n_r + 2  # padded with +inf so that every position < R has two children
-    ht = np.full(size, _INF_BITS)
-    hr = np.zeros(size, np.uint64)
-    pos = np.empty(n_r, np.uint64)
+    for s in range(n_s):
+        x[s] = x0[s]
+    for j in range(n_r):
+        unused[j] = 0.0  # E_j, the unit-rate time kept while a_j = 0
+    for i in range(ht.shape[0]):  # 2 R + 2: padded with +inf so that every position < R has two children
+        ht[i] = _INF_BITS
+        hr[i] = 0
     for j in range(n_r):
         e = np.uint64(n_r + 3 * j)
         a[j] = propensity(prog[e], rates[j], np.uint64(prog[e + _U1]), np.uint64(prog[e + _U2]), x, prog,
@@ -337,16 +324,29 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask,
-               rates, law, x0, times, states, max_events, counts, status, events, log_t, log_r, log_x):
-    """Run replicate i from ``states[i]`` into ``counts[i]``; logs go to ``log_*`` unless None."""
-    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask)
-    n_r = reactant_idx.shape[0]
+def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
+    """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol)."""
+    prog, n_r = model
+    x = np.empty_like(x0)
+    a = np.empty(n_r)
+    unused = np.empty(n_r)
+    ht = np.empty(2 * n_r + 2, np.int64)
+    hr = np.empty(2 * n_r + 2, np.uint64)
+    pos = np.empty(n_r, np.uint64)
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
-                          log_x)
+                          log_x, x, a, unused, ht, hr, pos)
         status[i] = st
         events[i] = ev
+
+
+# the functions between ``run`` and ``law_value``, compiled again with a model's laws inline
+LAW_PATH = (propensity, _run_one, run)
+
+
+def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray) -> tuple:
+    """The packed program of the network without self-loops in its dependency graph, and R."""
+    return program(*_without_self_loops(network).arrays), network.n_reactions
 
 
 def _without_self_loops(network: Network) -> Network:
@@ -361,20 +361,21 @@ def _without_self_loops(network: Network) -> Network:
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Sequence[np.random.SeedSequence], max_events: int) -> KernelResult:
+             seeds: Seeds, max_events: int) -> KernelResult:
     """Simulate one replicate per seed with the next reaction method.
 
     Parameters
     ----------
     network : Network
         The compiled reaction network.
-    rates : float64 (R,)
-        Stochastic rate constants c_j (per-molecule-combination).
+    rates : float64 (R,) or (R + P,)
+        Stochastic rate constants c_j (per-molecule-combination), followed by the parameters
+        the custom rate laws read when ``network.law`` is set.
     x0 : int (S,)
         Initial molecule counts.
     times : float64 (T,)
         Non-decreasing sample times, all >= 0.
-    seeds : sequence of SeedSequence
+    seeds : sequence of SeedSequence, or Streams
         One seed per replicate; replicate i draws only from ``seeds[i]``.
     max_events : int
         Event cap per replicate.
@@ -389,13 +390,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1.0]), np.array([10]), np.linspace(0, 5, 6),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000)
     """
-    rates, x0, times = _prepare(rates, x0, times)
-    states = seed_states(seeds)
-    n = states.shape[0]
-    counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*_without_self_loops(network).arrays, rates, addresses(network)[0], x0, times, states,
-               int(max_events), counts, status, events, None, None, None)
-    return KernelResult(counts, status, events)
+    return blocks.simulate("nrm", network, rates, x0, times, seeds, max_events)
 
 
 def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
@@ -405,15 +400,4 @@ def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     Consumes the random stream exactly as ``simulate`` does, so ``result`` equals the
     replicate's row of ``simulate`` bit for bit.
     """
-    rates, x0, times = _prepare(rates, x0, times)
-    first = simulate(network, rates, x0, times, [seed], max_events)
-    n_ev = int(first.events[0])
-    log_t = np.empty(n_ev)
-    log_r = np.empty(n_ev, dtype=np.int32)
-    log_x = np.empty((n_ev, x0.shape[0]), dtype=np.int64)
-    counts = np.empty((1, times.shape[0], x0.shape[0]), dtype=np.int32)
-    status = np.empty(1, dtype=np.int8)
-    events = np.empty(1, dtype=np.int64)
-    _run_block(*_without_self_loops(network).arrays, rates, addresses(network)[0], x0, times,
-               seed_states([seed]), int(max_events), counts, status, events, log_t, log_r, log_x)
-    return Trace(log_t, log_r, log_x, KernelResult(counts, status, events))
+    return blocks.trace("nrm", network, rates, x0, times, seed, max_events)

@@ -21,7 +21,7 @@ Choices:
   functions; only the solver's loop runs in Python.
 - **Replicates.** The solution is deterministic: the ``seeds`` only set the number of rows, and
   every row is the same trajectory (the sweep should run this method with one replicate).
-- **Outputs.** ``counts`` are float64 (``COUNTS_DTYPE``); samples at t = 0 are x0 exactly, and
+- **Outputs.** ``counts`` are float64 (the registry's ``counts``); samples at t = 0 are x0 exactly, and
   values below 0 (integration error, within ``ATOL``) are reported as 0. ``events`` is the number
   of right-hand-side evaluations. ``max_events`` caps them: a solve that needs more stops with
   status 1, and as ``solve_ivp`` returns nothing from an aborted solve, every sample after t = 0
@@ -41,11 +41,12 @@ import numba
 import numpy as np
 from scipy.integrate import solve_ivp
 
+from kernels import METHODS
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
 from kernels.ratelaw import addresses, call_law
 
-COUNTS_DTYPE = np.float64
-EVENT_UNIT = "evaluations"  # what ``events`` counts for this method (for reports)
+# the registry's dtype, as the attribute sweep.store and sweep.plan read until they read the record
+COUNTS_DTYPE = METHODS["ode"].counts_dtype
 ODE_METHODS = ("LSODA", "BDF")
 DEFAULT_ODE_METHOD = "LSODA"
 RTOL = 1e-8

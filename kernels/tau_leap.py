@@ -5,7 +5,7 @@ J. Chem. Phys. 124:044109 (2006), with the critical reactions of Cao, Gillespie 
 "Avoiding negative populations in explicit Poisson tau-leaping", J. Chem. Phys. 123:054104 (2005).
 One step from state x at time t:
 
-1. Propensities a_j (mass-action combinations, as ``kernels.direct.propensity``); a0 = sum a_j. If
+1. Propensities a_j (mass-action combinations, ``kernels.propensity.propensity``); a0 = sum a_j. If
    a0 = 0 the state holds to the end.
 2. Critical reactions: those with a_j > 0 that could exhaust a reactant within ``N_CRITICAL`` = 10
    firings, L_j = min over species i with net change v_ij < 0 of floor(x_i / |v_ij|) < 10.
@@ -49,21 +49,23 @@ method takes exact steps (no measurable bias, no speed-up).
 from __future__ import annotations
 
 from math import lgamma
-from typing import Sequence
+from typing import TYPE_CHECKING
 
 import numba
 import numpy as np
 
-from kernels.direct import _prepare, _program, propensity
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, empty_result
-from kernels.ratelaw import addresses
-from kernels.rng import seed_states, uniform, uniform_open0
+from kernels import blocks
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL
+from kernels.propensity import program, propensity
+from kernels.rng import uniform, uniform_open0
+
+if TYPE_CHECKING:
+    from kernels.blocks import Seeds
 
 DEFAULT_EPSILON = 0.03
 N_CRITICAL = 10  # n_c of Cao, Gillespie & Petzold (2005)
 SSA_FACTOR = 10.0  # leap only if tau' >= SSA_FACTOR / a0
 SSA_STEPS = 100  # exact steps taken when leaping does not pay
-EVENT_UNIT = "steps"  # what ``events`` counts for this method (for reports)
 
 _INT32_MAX = 2**31 - 1
 _PTRS_MIN = 10.0  # PTRS is valid for means >= 10 (Hörmann 1993)
@@ -376,33 +378,51 @@ def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st,
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_block(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask,
-               rates, law, x0, times, states, max_steps, eps, counts, status, events):
-    prog = _program(reactant_idx, reactant_mult, change_idx, change_val, dep_ptr, dep_idx, law_mask)
-    hor, need = _reactant_orders(reactant_idx, reactant_mult, x0.shape[0])
+def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
+    """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol; no logs)."""
+    prog, change_idx, change_val, hor, need, eps = model
     for i in range(states.shape[0]):
-        st, ev = _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, states[i], max_steps, eps,
+        st, ev = _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, states[i], max_events, eps,
                           counts[i])
         status[i] = st
         events[i] = ev
 
 
+# the functions between ``run`` and ``law_value``, compiled again with a model's laws inline
+LAW_PATH = (propensity, _propensities, _exact_steps, _run_one, run)
+
+
+def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray, *,
+            epsilon: float = DEFAULT_EPSILON) -> tuple:
+    """The packed program, the net changes, HOR(i) and the molecules it needs, and epsilon.
+
+    Raises
+    ------
+    ValueError
+        If ``epsilon`` is not positive and finite.
+    """
+    if not (np.isfinite(epsilon) and epsilon > 0.0):
+        raise ValueError(f"epsilon = {epsilon!r}: must be a positive number (typically 0.01 to 0.05)")
+    hor, need = _reactant_orders(network.reactant_idx, network.reactant_mult, x0.shape[0])
+    return program(*network.arrays), network.change_idx, network.change_val, hor, need, float(epsilon)
+
+
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Sequence[np.random.SeedSequence], max_events: int, *,
-             epsilon: float = DEFAULT_EPSILON) -> KernelResult:
+             seeds: Seeds, max_events: int, *, epsilon: float = DEFAULT_EPSILON) -> KernelResult:
     """Simulate one replicate per seed by tau-leaping (Cao, Gillespie & Petzold 2006).
 
     Parameters
     ----------
     network : Network
         The compiled reaction network.
-    rates : float64 (R,)
-        Stochastic rate constants c_j (per-molecule-combination).
+    rates : float64 (R,) or (R + P,)
+        Stochastic rate constants c_j (per-molecule-combination), followed by the parameters
+        the custom rate laws read when ``network.law`` is set.
     x0 : int (S,)
         Initial molecule counts.
     times : float64 (T,)
         Non-decreasing sample times, all >= 0.
-    seeds : sequence of SeedSequence
+    seeds : sequence of SeedSequence, or Streams
         One seed per replicate; replicate i draws only from ``seeds[i]``.
     max_events : int
         Cap on steps (leaps plus exact steps) per replicate.
@@ -424,12 +444,4 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1000.0, 1.0]), np.array([0]), np.linspace(0, 10, 11),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000, epsilon=0.03)
     """
-    if not (np.isfinite(epsilon) and epsilon > 0.0):
-        raise ValueError(f"epsilon = {epsilon!r}: must be a positive number (typically 0.01 to 0.05)")
-    rates, x0, times = _prepare(rates, x0, times)
-    states = seed_states(seeds)
-    n = states.shape[0]
-    counts, status, events = empty_result(n, times.shape[0], x0.shape[0])
-    _run_block(*network.arrays, rates, addresses(network)[0], x0, times, states, int(max_events),
-               float(epsilon), counts, status, events)
-    return KernelResult(counts, status, events)
+    return blocks.simulate("tau_leap", network, rates, x0, times, seeds, max_events, epsilon=epsilon)

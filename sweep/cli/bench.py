@@ -13,8 +13,9 @@ from sweep.cli.common import EXIT_BAD_INPUT, console, errors, exits_on_errors, s
 
 @exits_on_errors
 def bench(
-    method: Annotated[str, typer.Option(help="Kernel method to measure.")] = "direct",
-    network: Annotated[list[str] | None, typer.Option(help="Built-in network(s); default all.")] = None,
+    method: Annotated[list[str] | None, typer.Option(help="Kernel method(s) to measure (repeat the option for several); default direct, or direct, nrm and cr with --large.")] = None,
+    network: Annotated[list[str] | None, typer.Option(help="Built-in network(s); default all but the large ones.")] = None,
+    large: Annotated[bool, typer.Option("--large", help="Measure the networks of 100, 1,000 and 10,000 reactions (a ring of reversible hops and an invented random network).")] = False,
     spec_path: Annotated[Path | None, typer.Option("--spec", help="Also measure the first point of this spec.")] = None,
     repeats: Annotated[int, typer.Option(min=1, help="Timed batches; the median is shown.")] = 5,
     sweeps: Annotated[bool, typer.Option("--sweep", help="Instead: run the demo, a 1,024-task grid and 1,000 "
@@ -25,17 +26,22 @@ def bench(
     if sweeps:
         _sweeps(workers)
         return
-    from sweep.plan.bench import NETWORKS, measure, measure_spec  # numba: only when measuring
+    from sweep.plan.bench import LARGE, LARGE_METHODS, NETWORKS, measure, measure_spec  # numba: only when measuring
 
     unknown = [n for n in network or () if n not in NETWORKS]
     if unknown:
         errors.print(f"error: --network {shown(unknown[0])}: not a built-in network; one of {', '.join(NETWORKS)}")
         raise typer.Exit(EXIT_BAD_INPUT)
-    results = measure(method, network or None, repeats=repeats)
+    methods = method or (list(LARGE_METHODS) if large else ["direct"])
+    names = list(network) if network else (list(LARGE) if large else None)
+    if len(methods) > 1:
+        _compare(methods, names, repeats)
+        return
+    results = measure(methods[0], names, repeats=repeats)
     if spec_path is not None:
         results.append(measure_spec(spec_path, repeats=repeats))
     unit = results[0].unit if results else "events"  # tau-leaping counts steps, cle steps, ode evaluations
-    table = Table(title=f"Kernel speed, one core ({method})", title_justify="left")
+    table = Table(title=f"Kernel speed, one core ({methods[0]})", title_justify="left")
     table.add_column("network")
     table.add_column(f"{unit} / CPU-s", justify="right")
     table.add_column(f"ns / {unit.rstrip('s')}", justify="right")
@@ -61,3 +67,23 @@ def _sweeps(workers: int) -> None:
     console.print(table)
     console.print("kernel alone: the same replicates through the kernel on one core, seeding included; "
                   "wall time includes the cluster's start and close", highlight=False)
+
+
+def _compare(methods: list[str], names: list[str] | None, repeats: int) -> None:
+    """Several methods side by side: ns per event, and each one's speed relative to the first."""
+    from sweep.plan.bench import measure
+
+    by_method = {m: measure(m, names, repeats=repeats) for m in methods}
+    first = by_method[methods[0]]
+    table = Table(title=f"Kernel speed, one core: ns per event (speed-up over {methods[0]})", title_justify="left")
+    table.add_column("network")
+    for m in methods:
+        table.add_column(m, justify="right")
+    for i, base in enumerate(first):
+        cells = []
+        for m in methods:
+            r = by_method[m][i]
+            cells.append(f"{1e9 / r.events_per_cpu_second:.1f}" if m == methods[0] else
+                         f"{1e9 / r.events_per_cpu_second:.1f} ({r.events_per_cpu_second / base.events_per_cpu_second:.2g}x)")
+        table.add_row(base.network, *cells)
+    console.print(table)

@@ -44,7 +44,9 @@ def plan(
         f"estimated run time on {workers} worker{'s' if workers != 1 else ''}: [bold]~{duration(result.seconds)}[/]\n"
         f"  {si(result.events_total)} reaction events at {si(result.events_per_second)} events/s per worker, "
         f"{result.write_seconds * 1e3:.0f} ms to write a task's chunk, longest task "
-        f"~{duration(result.longest_task_seconds)}, start-up and shut-down ~{duration(planner.STARTUP_SECONDS)}",
+        f"~{duration(result.longest_task_seconds)}, start-up and shut-down ~{duration(planner.STARTUP_SECONDS)}"
+        + (f", compiling the model's kernel ~{duration(result.compile_seconds)} (not in the disk cache yet)"
+           if result.compile_seconds else ""),
         highlight=False,
     )
     cores = os.cpu_count() or 1

@@ -4,9 +4,18 @@ The source is built only from the tuple trees of ``sweep.model.expr`` (numbers, 
 operators, whitelisted calls), so no text a user wrote is ever executed: each node becomes a
 fixed Python fragment, names become array reads, numbers are written with ``repr(float)``.
 
-One module per model holds ``law_int`` and ``law_float`` (see ``kernels.ratelaw``); reaction j's
-branch returns its propensity, clamped at 0. Species read the state ``x``; parameter k reads
-``p[R + k]`` (the kernel's ``rates`` array carries the parameters after the R constants).
+Two texts per model (see ``kernels.ratelaw``):
+
+- ``source``: the C callbacks ``law_int`` and ``law_float``, one ``if j == ...`` branch per law
+  reaction returning its propensity clamped at 0;
+- ``inline_source``: the same laws as functions compiled into a kernel's event loop. Every
+  subexpression that reads no species (``K ** n``, ``vmax * K ** n``, ...) is computed once per block
+  by ``law_constants`` and read from its array ``q``; named laws are spelled out (in the operation
+  order of their definition, so the same bits); and in the integer-state form a species raised to a
+  power goes through ``ipow``, which multiplies for whole exponents up to 4 when that is exact.
+
+Species read the state ``x``; parameter k reads ``p[R + k]`` (the kernel's ``rates`` array carries
+the parameters after the R constants).
 """
 
 from __future__ import annotations
@@ -66,10 +75,113 @@ def source(laws: Mapping[int, tuple], species: Mapping[str, int], params: Mappin
 def compile_laws(laws: Mapping[int, tuple], species: Mapping[str, int], params: Mapping[str, int],
                  n_reactions: int, omega: float | None = None) -> RateLaw:
     """A ``RateLaw`` (compiled lazily where it runs) for the given laws; see ``source``."""
-    return RateLaw(source(laws, species, params, n_reactions, omega))
+    return RateLaw(source(laws, species, params, n_reactions, omega),
+                   inline_source(laws, species, params, n_reactions, omega))
 
 
-def _code(node: tuple, species, params, n_r: int, omega) -> str:
+# the named laws as trees of their arguments, in the operation order of kernels.ratelaw's definitions
+_NAMED = {
+    "hill_up": lambda x, vmax, k, n: ("/", ("*", vmax, ("**", x, n)), ("+", ("**", k, n), ("**", x, n))),
+    "hill_down": lambda x, vmax, k, n: ("/", ("*", vmax, ("**", k, n)), ("+", ("**", k, n), ("**", x, n))),
+    "michaelis": lambda s, vmax, km: ("/", ("*", vmax, s), ("+", km, s)),
+}
+
+_INLINE_HEADER = '''import math
+
+import numba
+import numpy as np
+
+from kernels.ratelaw import clamp, ipow
+'''
+
+
+def inline_source(laws: Mapping[int, tuple], species: Mapping[str, int], params: Mapping[str, int],
+                  n_reactions: int, omega: float | None = None) -> str:
+    """The laws as ``law_constants``, ``law_value_int`` and ``law_value_float`` (module docstring).
+
+    Parameters and returns as ``source``; the text is a fragment that ``kernels.ratelaw.specialised``
+    places into a kernel module.
+    """
+    gen = _Inline(species, params, n_reactions, omega)
+    forms = {}
+    for integer in (True, False):
+        body = []
+        for j in sorted(laws):
+            code = gen.code(_spell(laws[j]), integer)
+            if omega is not None:
+                code = f"{omega!r} * ({code})"
+            body.append(f"    if jj == {j}:\n        return clamp({code})\n")
+        forms[integer] = "".join(body) + "    return 0.0\n"
+    constants = "".join(f"    q[{i}] = {code}\n" for i, code in enumerate(gen.hoisted))
+    decorator = '@numba.njit(inline="always", cache=True, error_model="numpy")'
+    return (_INLINE_HEADER
+            + '\n\n@numba.njit(cache=True, nogil=True, error_model="numpy")\ndef law_constants(p):\n'
+            + f"    q = np.empty({max(1, len(gen.hoisted))})\n    q[0] = 0.0\n" + constants + "    return q\n"
+            + f"\n\n{decorator}\ndef law_value_int(law, p1, x, rates):\n    jj = np.int64(p1)\n" + forms[True]
+            + f"\n\n{decorator}\ndef law_value_float(law, p1, x, rates):\n    jj = np.int64(p1)\n" + forms[False])
+
+
+def _spell(node: tuple) -> tuple:
+    """The tree with every named law replaced by its spelled-out tree."""
+    kind = node[0]
+    if kind in ("num", "name"):
+        return node
+    if kind == "neg":
+        return ("neg", _spell(node[1]))
+    if kind == "call":
+        args = tuple(_spell(a) for a in node[2])
+        if node[1] in _NAMED:
+            return _NAMED[node[1]](*args)
+        return ("call", node[1], args)
+    return (kind, _spell(node[1]), _spell(node[2]))
+
+
+def _reads_species(node: tuple, species) -> bool:
+    kind = node[0]
+    if kind == "num":
+        return False
+    if kind == "name":
+        return node[1] in species
+    if kind == "neg":
+        return _reads_species(node[1], species)
+    if kind == "call":
+        return any(_reads_species(a, species) for a in node[2])
+    return _reads_species(node[1], species) or _reads_species(node[2], species)
+
+
+class _Inline:
+    """Code of spelled-out trees, collecting the parameter-only subexpressions into ``hoisted``."""
+
+    def __init__(self, species, params, n_r, omega):
+        self.species, self.params, self.n_r, self.omega = species, params, n_r, omega
+        self.hoisted: list[str] = []
+
+    def code(self, node: tuple, integer: bool) -> str:
+        kind = node[0]
+        if kind != "num" and not _reads_species(node, self.species):
+            # computed once per block into q: the same operations on the same values, so the same
+            # bits. A plain parameter goes there too, so that the law reads no array but the state
+            # (numba then prunes the reference counting of the arrays passed into ``propensity``).
+            text = _code(node, self.species, self.params, self.n_r, self.omega)
+            if text not in self.hoisted:
+                self.hoisted.append(text)
+            return f"law[{self.hoisted.index(text)}]"
+        if kind in ("num", "name"):
+            return _code(node, self.species, self.params, self.n_r, self.omega)
+        if kind == "neg":
+            return f"(-{self.code(node[1], integer)})"
+        if kind == "call":
+            args = [self.code(a, integer) for a in node[2]]
+            if node[1] in ("min", "max") and len(args) > 2:
+                return _fold(node[1], args)
+            return f"{_CALLS[node[1]]}({', '.join(args)})"
+        if kind == "**" and integer and self.omega is None and node[1][0] == "name" and node[1][1] in self.species:
+            # a molecule count (a whole number) to a power: ipow multiplies when that is exact
+            return f"ipow({self.code(node[1], integer)}, {self.code(node[2], integer)})"
+        return f"({self.code(node[1], integer)} {kind} {self.code(node[2], integer)})"
+
+
+def _code(node: tuple, species, params, n_r: int, omega, p: str = "p") -> str:
     kind = node[0]
     if kind == "num":
         return repr(float(node[1]))
@@ -78,16 +190,16 @@ def _code(node: tuple, species, params, n_r: int, omega) -> str:
         if name in species:
             read = f"float(x[{species[name]}])"
             return f"({read} / {omega!r})" if omega is not None else read
-        return f"p[{n_r + params[name]}]"
+        return f"{p}[{n_r + params[name]}]"
     if kind == "neg":
-        return f"(-{_code(node[1], species, params, n_r, omega)})"
+        return f"(-{_code(node[1], species, params, n_r, omega, p)})"
     if kind == "call":
-        args = ", ".join(_code(a, species, params, n_r, omega) for a in node[2])
+        args = [_code(a, species, params, n_r, omega, p) for a in node[2]]
         if node[1] in ("min", "max") and len(node[2]) > 2:
-            return _fold(node[1], [_code(a, species, params, n_r, omega) for a in node[2]])
-        return f"{_CALLS[node[1]]}({args})"
+            return _fold(node[1], args)
+        return f"{_CALLS[node[1]]}({', '.join(args)})"
     if kind in _OPERATORS:
-        return f"({_code(node[1], species, params, n_r, omega)} {kind} {_code(node[2], species, params, n_r, omega)})"
+        return f"({_code(node[1], species, params, n_r, omega, p)} {kind} {_code(node[2], species, params, n_r, omega, p)})"
     raise ValueError(f"not a checked expression node: {kind!r}")
 
 

@@ -15,8 +15,22 @@ Two more are there for the other methods: a 100-reaction chain (many reactions, 
 event: the next reaction method's case, Gibson & Bruck 2000) and gene expression at ~10^4
 proteins (high copy numbers: tau-leaping's case, Cao, Gillespie & Petzold 2006).
 
+Three measure custom rate laws against the same networks in mass action: ``gene_expression_law``
+(``gene_expression`` with every propensity written as an expression, ``"kp * M"``, the same process
+bit for bit), ``self_repressor`` (a gene repressing itself through ``hill_down(P, vmax, K, n)`` with
+n = 2, the textbook negative autoregulation; Hill 1910 for the law) and ``self_repressor_constant``
+(the same network with the Hill law replaced by the constant vmax / 2, its value at P = K).
+
+Six are large, for the exact methods' scaling with the number of reactions R (``LARGE``, measured
+with ``sweep bench --large``): ``ring100``, ``ring1000``, ``ring10000``, a ring of R/2 sites with a
+reversible hop between neighbours (uniform stationary occupation, common practice: detailed
+balance), and ``random100`` .. ``random10000``, an invented closed network of first- and
+second-order conversions with a stationary state. The direct method's search grows with R; the
+next reaction method's queue with log R; composition-rejection's cost per event stays nearly flat
+(Slepoy, Thompson & Plimpton 2008).
+
 Any registered method can be measured. For a method whose ``events`` are not reaction
-events (tau-leaping counts steps; the kernel module says so in ``EVENT_UNIT``), the
+events (tau-leaping counts steps; its registry record says so in ``events``), the
 figures are per step, so compare methods by ``replicates_per_cpu_second``; the
 time-averaged ``mean_counts`` of the same replicates show what an approximate method
 gives for that speed.
@@ -43,6 +57,65 @@ def _chain(n: int, spread: bool = False) -> dict:
         reactions[f"b{i}"] = {"reaction": f"S{i + 1} -> S{i}", "rate": 1.0}
     return {"species": species, "reactions": reactions}
 
+
+def _ring(n_reactions: int) -> tuple[dict, float]:
+    """A ring of n/2 sites with a reversible hop between neighbours (rate 1 each way), 20 molecules
+    per site: a closed first-order network, multinomial at steady state with equal site
+    probabilities (Jahnke & Huisinga 2007). Every reaction stays active, as in a large network at
+    steady state. The time span gives about 5e5 events per replicate at every size."""
+    sites = n_reactions // 2
+    reactions = {}
+    for i in range(sites):
+        reactions[f"f{i}"] = {"reaction": f"S{i} -> S{(i + 1) % sites}", "rate": 1.0}
+        reactions[f"b{i}"] = {"reaction": f"S{(i + 1) % sites} -> S{i}", "rate": 1.0}
+    return {"species": {f"S{i}": 20 for i in range(sites)}, "reactions": reactions}, 5e5 / (20.0 * n_reactions)
+
+
+def _random_network(n_reactions: int, seed: int = 20261213) -> tuple[dict, float]:
+    """An invented closed network on n/4 species with 50 molecules each: a first-order ring
+    S0 -> S1 -> ... -> S0 through a random permutation (so every species is consumed and the state
+    space is irreducible), then random first-order conversions X -> Y and second-order exchanges
+    X + Y -> Z + W, half each. Every reaction conserves the number of molecules, so the state space
+    is finite and a stationary distribution exists. Rates are uniform on [0.1, 1], divided by 50 for
+    the second-order ones so that both kinds have comparable propensities."""
+    rng = np.random.default_rng(seed)
+    n_s = n_reactions // 4
+    perm = rng.permutation(n_s)
+    reactions = {}
+    for i in range(n_s):
+        reactions[f"ring{i}"] = {"reaction": f"S{perm[i]} -> S{perm[(i + 1) % n_s]}",
+                                 "rate": float(rng.uniform(0.1, 1.0))}
+    for i in range(n_reactions - n_s):
+        if i % 2 == 0:
+            x, y = rng.choice(n_s, 2, replace=False)
+            reactions[f"uni{i}"] = {"reaction": f"S{x} -> S{y}", "rate": float(rng.uniform(0.1, 1.0))}
+        else:
+            x, y, z, w = rng.choice(n_s, 4, replace=False)
+            reactions[f"bi{i}"] = {"reaction": f"S{x} + S{y} -> S{z} + S{w}",
+                                   "rate": float(rng.uniform(0.1, 1.0)) / 50.0}
+    return {"species": {f"S{i}": 50 for i in range(n_s)}, "reactions": reactions}, 5e5 / (30.0 * n_reactions)
+
+
+def _gene_expression_law() -> dict:
+    rates = {"km": 10.0, "gm": 1.0, "kp": 10.0, "gp": 0.1}
+    laws = {"tx": ("0 -> M", "km"), "dm": ("M -> 0", "gm * M"), "tl": ("M -> M + P", "kp * M"),
+            "dp": ("P -> 0", "gp * P")}
+    return {"species": {"M": 0, "P": 0}, "parameters": rates,
+            "reactions": {name: {"reaction": eq, "propensity": law} for name, (eq, law) in laws.items()}}
+
+
+def _self_repressor(constant: bool) -> dict:
+    make = ({"reaction": "0 -> P", "rate": "half"} if constant
+            else {"reaction": "0 -> P", "propensity": "hill_down(P, vmax, K, n)"})
+    return {"species": {"P": 0}, "parameters": {"vmax": 30.0, "K": 10.0, "n": 2.0, "g": 1.0, "half": 15.0},
+            "reactions": {"make": make, "decay": {"reaction": "P -> 0", "rate": "g"}}}
+
+
+LARGE_SIZES = (100, 1000, 10_000)
+# measured only when asked for (``sweep bench --large``): the direct method takes seconds per
+# replicate on the 10,000-reaction ones
+LARGE = tuple(f"{family}{n}" for family in ("ring", "random") for n in LARGE_SIZES)
+LARGE_METHODS = ("direct", "nrm", "cr")
 
 NETWORKS: dict[str, tuple[dict, float]] = {
     "isomerization": ({"species": {"A": 1000, "B": 0},
@@ -72,6 +145,13 @@ NETWORKS: dict[str, tuple[dict, float]] = {
                                            "dm": {"reaction": "M -> 0", "rate": 1.0},
                                            "tl": {"reaction": "M -> M + P", "rate": 10.0},
                                            "dp": {"reaction": "P -> 0", "rate": 0.1}}}, 200.0),
+    "gene_expression_law": (_gene_expression_law(), 1000.0),
+    "self_repressor": (_self_repressor(False), 1000.0),
+    "self_repressor_constant": (_self_repressor(True), 1000.0),
+    # large networks: where the direct method's search grows with R and composition-rejection's cost
+    # does not (Slepoy, Thompson & Plimpton 2008)
+    **{f"ring{n}": _ring(n) for n in LARGE_SIZES},
+    **{f"random{n}": _random_network(n) for n in LARGE_SIZES},
 }
 
 
@@ -99,7 +179,8 @@ def measure(method: str = "direct", networks: Iterable[str] | None = None, repea
     """Median events per CPU-second of ``method`` over ``repeats`` timed batches.
 
     Each batch runs whole replicates until at least ``min_seconds`` of CPU time passed,
-    after one warm-up call (which also compiles the kernel).
+    after one warm-up call (which also compiles the kernel). ``networks`` defaults to every
+    built-in network but the ``LARGE`` ones.
 
     Raises
     ------
@@ -107,9 +188,9 @@ def measure(method: str = "direct", networks: Iterable[str] | None = None, repea
         If ``method`` is not a registered kernel or a network is unknown.
     """
     kernel = _kernel(method)
-    unit = getattr(kernel, "EVENT_UNIT", "events")
+    unit = _unit(method)
     out = []
-    for name in networks or NETWORKS:
+    for name in networks or [n for n in NETWORKS if n not in LARGE]:
         if name not in NETWORKS:
             raise SpecError("sweep bench", "--network", "unknown network", name, f"one of: {', '.join(NETWORKS)}")
         table, t_end = NETWORKS[name]
@@ -128,6 +209,12 @@ def _kernel(method: str):
     return kernels.get(method)
 
 
+def _unit(method: str) -> str:
+    import kernels
+
+    return kernels.record(method).events
+
+
 def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResult:
     """Kernel speed on the first point of a spec (its model, rates and time grid)."""
     import kernels
@@ -139,7 +226,7 @@ def measure_spec(path, repeats: int = 5, min_seconds: float = 0.5) -> BenchResul
     kernel = kernels.get(spec.method)
     return _measure_one(kernel.simulate, f"{Path(path).name} (point 0)", spec.method,
                         spec.model, spec.times[-1], repeats, min_seconds, len(spec.times), values, table,
-                        unit=getattr(kernel, "EVENT_UNIT", "events"))
+                        unit=_unit(spec.method))
 
 
 def _measure_one(simulate: Callable, name: str, method: str, model: Model, t_end: float,

@@ -35,7 +35,7 @@ Layout of a spec::
     k_tx = [0.05, 0.1, 0.2]
 
     [derived]                         # parameters computed at each point from others
-    k_off = "k_on * Kd"               # arithmetic only (see sweep.expr)
+    k_off = "k_on * Kd"               # arithmetic only (see sweep.model.expr)
 """
 
 from __future__ import annotations

@@ -189,3 +189,94 @@ def test_molar_law_reads_concentrations():
     fired = (res.counts[:, -1, 1] > 0).mean()
     # P(at least one event by t = 1) = 1 - exp(-a): 0.2599; binomial SE 0.0069, 4.5 SE tolerance
     assert abs(fired - (1 - np.exp(-a))) < 4.5 * np.sqrt(0.26 * 0.74 / 4000)
+
+
+# --- laws compiled into the event loop (kernels.ratelaw.specialised) -------------------------------
+
+@pytest.mark.parametrize("method", ["direct", "nrm", "tau_leap", "cle"])
+def test_inline_laws_give_the_callbacks_bytes(method):
+    """The laws compiled into the event loop (hoisted constants, spelled-out named laws, integer
+    powers by multiplication) give the same bytes as the C callbacks they replace, on a model with
+    every construct. Reproducibility against the earlier code, not science: that is the rest of
+    this file."""
+    import test_recorded_outputs as rec
+    from kernels.ratelaw import RateLaw
+
+    for n in (2.0, 1.7, 3.0):
+        net, rates, x0 = rec._laws(n)
+        callbacks = net._replace(law=RateLaw(net.law.source))  # no inline form: the address path
+        times = np.linspace(0.0, 30.0, 7)
+        kernel = kernels.get(method)
+        a = kernel.simulate(net, rates, x0, times, seeds(20, root=68), CAP)
+        b = kernel.simulate(callbacks, rates, x0, times, seeds(20, root=68), CAP)
+        for got, want in zip(a, b):
+            assert got.tobytes() == want.tobytes(), (method, n)
+
+
+def test_specialised_kernel_is_used_and_keyed_by_the_laws():
+    """A law model runs a generated module holding its laws; another model gets another module."""
+    from kernels import blocks
+
+    one = _self_repressor("hill_down(P, vmax, K, n)")
+    two = _self_repressor("hill_up(P, vmax, K, n) + 1")
+    run1, law1 = blocks.loop("direct", compile_network(one), rate_constants(one, one.parameter_values))
+    run2, _ = blocks.loop("direct", compile_network(two), rate_constants(two, two.parameter_values))
+    assert run1.py_func.__module__.startswith("stochsweep_direct_")
+    assert run1.py_func.__module__ != run2.py_func.__module__
+    # K ** n and vmax * K ** n computed once per block: 30 * 10**2 and 10**2, plus the parameter n
+    assert law1 == (3000.0, 100.0, 2.0)
+
+
+def test_rate_law_pickles_as_its_two_texts():
+    import pickle
+
+    net = compile_network(_self_repressor("hill_down(P, vmax, K, n)"))
+    data = pickle.dumps(net.law)
+    assert len(data) < 4 * (len(net.law.source) + len(net.law.inline))
+    back = pickle.loads(data)
+    assert back == net.law and back.inline == net.law.inline
+
+
+def test_compiled_reports_the_disk_cache(tmp_path, monkeypatch):
+    """``kernels.compiled`` is False for a law model never compiled here and True once it ran: what
+    ``sweep plan`` counts as a compile. Mass action is always compiled (the package's kernels)."""
+    monkeypatch.setenv("SWEEP_CACHE_DIR", str(tmp_path))
+    monkeypatch.delenv("NUMBA_CACHE_DIR", raising=False)
+    model = _self_repressor("hill_down(P, vmax, K, n) + 0.125")  # a law no other test compiles
+    net = compile_network(model)
+    assert not kernels.compiled("direct", net)
+    _run("direct", model, [0.0, 1.0], 2, root=69)
+    assert kernels.compiled("direct", net)
+    assert kernels.compiled("direct", compile_network(_model({"A": 1}, {}, {"d": {"reaction": "A -> 0", "rate": 1.0}})))
+
+
+# --- integer powers by multiplication: the same bits as pow ---------------------------------------
+
+def test_integer_powers_of_counts_equal_pow():
+    """``kernels.ratelaw.ipow`` multiplies for exponents 1 to 4 when the result is below 2**53; that
+    is only the same bits as ``pow`` if pow returns the exact result whenever it is a double. Checked
+    here, with the pow the kernels call (numba's, i.e. the C library's): every count below 2**20,
+    200 000 random counts up to the 2**53 bound per exponent, the powers of two and their neighbours,
+    and the fallback above the bound. (IEEE 754 requires pow to be exact only in special cases; the
+    C library's is accurate to well under one unit in the last place, which makes exact results exact.)
+    """
+    import numba
+
+    from kernels.ratelaw import ipow
+
+    @numba.njit(error_model="numpy")
+    def mismatches(bases, e):
+        bad = 0
+        for b in bases:
+            if ipow(b, e) != b ** e:
+                bad += 1
+        return bad
+
+    rng = np.random.default_rng(2026)
+    for e in (1.0, 2.0, 3.0, 4.0):
+        bound = 2.0 ** (53.0 / e)
+        edges = np.array([2.0**k + d for k in range(int(53 / e) + 1) for d in (-1.0, 0.0, 1.0)])
+        bases = np.concatenate([np.arange(2.0**20), np.floor(rng.uniform(0, bound, 200_000)), edges,
+                                np.floor(rng.uniform(bound, 4 * bound, 1000)), -np.arange(1000.0)])
+        assert mismatches(bases, e) == 0, e
+    assert mismatches(np.arange(100.0), 2.5) == 0  # not whole: pow itself

@@ -154,3 +154,60 @@ def test_trial_chunk_is_written_like_a_task_and_cleaned_up(small_plan, tmp_path)
     stored, seconds = planner.write_trial(block, spec, spec.points(), tmp_path)
     assert 0 < stored < counts.nbytes and seconds > 0
     assert list(tmp_path.iterdir()) == []  # the scratch store is gone
+
+
+def test_compile_seconds_count_only_when_the_kernel_is_not_cached(spec_file, monkeypatch):
+    """A model whose kernel is not in numba's disk cache (``kernels.compiled`` is False) pays its
+    compilation once: the plan's warm-up measures it and the estimate includes it."""
+    import kernels
+
+    spec = sweep.load(spec_file(GRID))
+    monkeypatch.setattr(kernels, "compiled", lambda method, network: True)
+    cached = planner.plan(spec, workers=2, seconds=0.3)
+    assert cached.compile_seconds == 0.0
+    monkeypatch.setattr(kernels, "compiled", lambda method, network: False)
+    cold = planner.plan(spec, workers=2, seconds=0.3)
+    assert cold.compile_seconds > 0.0
+    assert cold.seconds >= planner.STARTUP_SECONDS + cold.compile_seconds
+
+
+def test_a_new_law_model_is_not_cached_and_the_plan_says_so(spec_file, tmp_path, monkeypatch):
+    """With an empty law cache, a custom-law model's kernel is not compiled: ``sweep plan`` adds and
+    prints the compile time; planned again, it is cached and adds nothing."""
+    monkeypatch.setenv("SWEEP_CACHE_DIR", str(tmp_path / "laws"))
+    model = """
+    [model.species]
+    A = 0
+    [model.parameters]
+    k = 5.0
+    g = 0.5
+    [model.reactions]
+    birth = { reaction = "0 -> A", propensity = "k * 1.25" }
+    death = { reaction = "A -> 0", propensity = "g * A" }
+    """
+    spec = sweep.load(spec_file(GRID, model=model))
+    first = planner.plan(spec, workers=2, seconds=0.3)
+    assert first.compile_seconds > 0.0
+    again = planner.plan(spec, workers=2, seconds=0.3)
+    assert again.compile_seconds == 0.0
+
+
+def test_direct_on_a_large_network_is_advised_against():
+    import kernels
+
+    assert planner.method_advice("direct", 100) == []
+    assert planner.method_advice("nrm", 5000) == []
+    (note,) = planner.method_advice("direct", kernels.ADVISE_FROM)
+    assert "'nrm' or 'cr'" in note
+
+
+def test_plan_warns_for_direct_on_a_large_network(spec_file):
+    sites = 300  # 600 reactions
+    hops = "\n".join(f'f{i} = {{ reaction = "S{i} -> S{(i + 1) % sites}", rate = 1.0 }}\n'
+                     f'b{i} = {{ reaction = "S{(i + 1) % sites} -> S{i}", rate = 1.0 }}' for i in range(sites))
+    species = "\n".join(f"S{i} = 2" for i in range(sites))
+    model = f"[model.species]\n{species}\n[model.reactions]\n{hops}\n"
+    body = "[run]\nreplicates = 2\nseed = 1\nmethod = \"direct\"\n[time]\nend = 0.5\nsamples = 3\n"
+    spec = sweep.load(spec_file(body, model=model))
+    result = planner.plan(spec, workers=1, seconds=0.2)
+    assert any("'nrm' or 'cr'" in w for w in result.warnings)

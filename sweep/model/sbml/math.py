@@ -341,7 +341,7 @@ def _type_name(t: int) -> str:
     return str(t)
 
 
-# ---- our tree -> text (the grammar of sweep.expr) -------------------------------------------
+# ---- our tree -> text (the grammar of sweep.model.expr) -------------------------------------------
 
 _PRECEDENCE = {"+": 1, "-": 1, "*": 2, "/": 2, "neg": 3, "**": 4}
 

@@ -41,7 +41,7 @@ def write(model: Model, source: str = "model", values: Mapping[str, float] | Non
         File the model came from, for errors.
     values : mapping, optional
         Parameter values to write (a spec's fixed values); default the model's own.
-    derived : sequence of (name, sweep.expr.Expr)
+    derived : sequence of (name, sweep.model.expr.Expr)
         A spec's derived parameters, written as initial assignments.
     model_id : str
         The ``<model id>``.
