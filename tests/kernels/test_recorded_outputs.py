@@ -273,14 +273,14 @@ RECORDED: dict[tuple[str, str], tuple[str, ...]] = {
     ('inf_mass_action', 'cle_dt'): ('d2307831f3ec92d42c46', 'd2307831f3ec92d42c46', 'd2307831f3ec92d42c46'),
     ('inf_mass_action', 'ode'): ('d2307831f3ec92d42c46', 'd2307831f3ec92d42c46'),
     ('inf_divide_by_zero', 'direct'): ('de2aa54f79825a940b6c', 'de2aa54f79825a940b6c', 'de2aa54f79825a940b6c'),
-    ('inf_divide_by_zero', 'nrm'): ('de2aa54f79825a940b6c', 'de2aa54f79825a940b6c', 'de2aa54f79825a940b6c'),
+    ('inf_divide_by_zero', 'nrm'): ('b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d'),  # main's nrm (6135a3e)
     ('inf_divide_by_zero', 'tau_leap'): ('de2aa54f79825a940b6c', 'de2aa54f79825a940b6c', 'de2aa54f79825a940b6c'),
     ('inf_divide_by_zero', 'tau_leap_eps'): ('de2aa54f79825a940b6c', 'de2aa54f79825a940b6c', 'de2aa54f79825a940b6c'),
     ('inf_divide_by_zero', 'cle'): ('dff983959a965d0f98ee', 'dff983959a965d0f98ee', 'dff983959a965d0f98ee'),
     ('inf_divide_by_zero', 'cle_dt'): ('dff983959a965d0f98ee', 'dff983959a965d0f98ee', 'dff983959a965d0f98ee'),
     ('inf_divide_by_zero', 'ode'): ('dff983959a965d0f98ee', 'dff983959a965d0f98ee'),
     ('inf_later', 'direct'): ('b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d'),
-    ('inf_later', 'nrm'): ('b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d', 'b41cf99d1fce5228a90d'),
+    ('inf_later', 'nrm'): ('0c63717e9ba99185971f', '0c63717e9ba99185971f', '0c63717e9ba99185971f'),  # main's nrm (6135a3e)
     ('inf_later', 'tau_leap'): ('a063a5d9a67d8f556f59', 'a6d7228574be36ab8f2a', 'a063a5d9a67d8f556f59'),
     ('inf_later', 'tau_leap_eps'): ('a063a5d9a67d8f556f59', 'a6d7228574be36ab8f2a', 'a063a5d9a67d8f556f59'),
     ('inf_later', 'cle'): ('308e693ebc72d43838d1', '82297bfcfd7c612d012e', '308e693ebc72d43838d1'),
