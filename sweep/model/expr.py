@@ -39,6 +39,7 @@ _FUNCTIONS = {
     "exp": (np.exp, 1, 1),
     "log": (np.log, 1, 1),
     "sqrt": (np.sqrt, 1, 1),
+    "floor": (np.floor, 1, 1),  # rounds SBML initial assignments to whole counts: floor(v + 0.5)
     "min": (np.minimum, 2, None),
     "max": (np.maximum, 2, None),
     # the named rate laws, written as their spelled-out forms (kernels.ratelaw compiles the same)
@@ -46,7 +47,7 @@ _FUNCTIONS = {
     "hill_down": (lambda x, vmax, k, n: vmax * k ** n / (k ** n + x ** n), 4, 4),
     "michaelis": (lambda s, vmax, km: vmax * s / (km + s), 3, 3),
 }
-_ALLOWED = ("numbers, names, + - * / **, parentheses and min, max, exp, log, sqrt, "
+_ALLOWED = ("numbers, names, + - * / **, parentheses and min, max, exp, log, sqrt, floor, "
             "hill_up, hill_down, michaelis")
 
 

@@ -401,7 +401,8 @@ def _half_stoichiometry(m):
 def _reversible_net(m):
     r = m.getReaction("r1")
     r.setReversible(True)
-    r.getKineticLaw().setMath(libsbml.parseL3Formula("k * A / (1 + A) - k * B"))
+    # the backward part reads A, a reactant only: not a difference of a forward and a backward law
+    r.getKineticLaw().setMath(libsbml.parseL3Formula("k * A / (1 + A) - k * B * A"))
 
 
 def _conversion_factor(m):
@@ -410,6 +411,7 @@ def _conversion_factor(m):
 
 def _no_size(m):
     m.getCompartment("cell").unsetSize()
+    m.getSpecies("A").setHasOnlySubstanceUnits(False)  # a concentration needs the size
 
 
 def _no_units(m):
@@ -432,7 +434,6 @@ def _keyword(m):
 REFUSED = {
     "event": (_event, "event pulse"),
     "rate rule": (_rate_rule, "rate rule for q"),
-    "assignment rule": (_assignment_rule, "assignment rule for q"),
     "algebraic rule": (_algebraic_rule, "algebraic rule"),
     "initial assignment to a compartment": (_compartment_assignment, "initial assignment to cell"),
     "constraint": (_constraint, "constraint cap"),
@@ -443,7 +444,7 @@ REFUSED = {
     "non-integer stoichiometry": (_half_stoichiometry, "reaction r1: product B has stoichiometry 0.5"),
     "reversible net law": (_reversible_net, "reaction r1: reversible"),
     "conversion factor": (_conversion_factor, "model conversionFactor k"),
-    "compartment without size": (_no_size, "compartment cell: no size"),
+    "compartment without size": (_no_size, "compartment cell: no size, and species A in it is a concentration"),
     "undeclared substance units": (_no_units, "species A: substance units not declared"),
     "grams": (_grams, "'gram' is not a substance unit"),
     "reserved word": (_keyword, "id 'lambda': a reserved word"),
