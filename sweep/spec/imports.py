@@ -52,13 +52,14 @@ def _no_volume(value: Any, src: str) -> None:
                         'a TOML model sets its volume with units = { constants = "molar", volume = ... }')
 
 
-def check_method(imported: sbml.Imported | None, method: str, src: str, deterministic: bool) -> None:
+def check_method(imported: sbml.Imported | None, method: str, src: str, model_file: str) -> None:
     """Refuse, for a method other than the ODE, what only the ODE honours (each element by id)."""
     if imported is None or not imported.ode_only or method == "ode":
         return
     listing = "\n  - ".join(f"{element}: {why}" for element, why in imported.ode_only)
     raise SpecError(src, "run.method", f"the {method} method cannot honour {len(imported.ode_only)} element(s) of "
-                    f"the SBML model:\n  - {listing}", method, 'use method = "ode", or remove them from the model')
+                    f"the SBML model {model_file}:\n  - {listing}", method,
+                    'use method = "ode", or remove them from the model')
 
 
 def time_unit(table: Mapping[str, Any], imported: sbml.Imported | None, src: str) -> str:

@@ -239,7 +239,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     if method in kernels.DETERMINISTIC and replicates != 1:
         raise SpecError(src, "run.replicates", f"method {method!r} is deterministic: one trajectory per point",
                         replicates, "set replicates = 1")
-    model_files.check_method(imported, method, src, method in kernels.DETERMINISTIC)
+    model_files.check_method(imported, method, src, str(doc.get("model")))
     options = _options(run.get("options", {}), method, src)
     per_task = _int(run, "replicates_per_task", src, "run", minimum=1,
                     default=min(replicates, DEFAULT_REPLICATES_PER_TASK))

@@ -206,6 +206,8 @@ def difference(tree: tuple) -> tuple[tuple, tuple] | None:
         return tree[1], tree[2]
     if tree[0] == "+" and tree[2][0] == "neg":
         return tree[1], tree[2][1]
+    if tree[0] == "+" and tree[1][0] == "neg":
+        return tree[2], tree[1][1]  # -backward + forward
     return None
 
 

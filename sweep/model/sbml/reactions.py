@@ -27,7 +27,7 @@ from typing import Any, Mapping
 from sweep.model import expr as expressions
 from sweep.spec import limits
 from sweep.model.sbml import laws, rules
-from sweep.model.sbml.math import from_ast, render
+from sweep.model.sbml.math import TIME, from_ast, render
 
 
 def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
@@ -44,9 +44,10 @@ def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
         return {}
     formula = _formula(reaction)
     species, beta = ctx.species_ids, ctx.beta
-    if reaction.getReversible() and not _subtracts(tree):
+    if reaction.getReversible() and not _net(tree):
         ctx.notes.append((where, "declared reversible, but its law has no backward term: it runs forward only"))
-    ma = laws.mass_action(tree, reactants, species, beta, ctx.alpha_e)
+    timed = TIME in laws.names(tree)  # a time-dependent law is never a constant times counts
+    ma = None if timed else laws.mass_action(tree, reactants, species, beta, ctx.alpha_e)
     if ma is not None:
         rate, shown = _rate(ctx, rid, ma)
         ctx.notes.append((where, f"{formula} -> mass action, c = {shown}"))
@@ -55,7 +56,7 @@ def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
         split = _split(ctx, rid, tree, reactants, products, formula)
         if split is not None:
             return split
-        if _subtracts(tree):
+        if _net(tree):
             ctx.problems.append(
                 f"{where}: reversible, and its law ({formula}) is not a difference of two mass-action terms "
                 "(forward over the reactants minus backward over the products), so its net rate can be negative; "
@@ -168,8 +169,9 @@ def _split(ctx, rid: str, tree: tuple, reactants, products, formula: str) -> dic
     common, f, g = parts
     forward, backward = ((t if common == ("num", 1.0) else ("*", common, t)) for t in (f, g))
     species, beta = ctx.species_ids, ctx.beta
-    fma = laws.mass_action(forward, reactants, species, beta, ctx.alpha_e)
-    bma = laws.mass_action(backward, products, species, beta, ctx.alpha_e)
+    timed = TIME in laws.names(tree)
+    fma = None if timed else laws.mass_action(forward, reactants, species, beta, ctx.alpha_e)
+    bma = None if timed else laws.mass_action(backward, products, species, beta, ctx.alpha_e)
     names = ctx.fresh(f"{rid}_fwd"), ctx.fresh(f"{rid}_rev")
     if fma is not None and bma is not None:
         out = {}
@@ -198,6 +200,18 @@ def _split(ctx, rid: str, tree: tuple, reactants, products, formula: str) -> dic
 def _subtracts_species(tree: tuple) -> bool:
     """A subtraction in a numerator factor of the shared part (it could turn both channels negative)."""
     return any(e > 0 and _subtracts(a) for a, e in laws.product(tree).atoms)
+
+
+def _net(tree: tuple) -> bool:
+    """Whether the law is a net rate: it, or a factor of its numerator, is a difference.
+
+    A subtraction deeper down (inside a function call, a power, a denominator, an inlined
+    ``piecewise`` of the time) does not make the law change sign by itself.
+    """
+    if tree[0] == "neg":
+        return True
+    prod = laws.product(tree)
+    return prod.coef < 0 or any(e > 0 and (a[0] == "neg" or laws.difference(a) is not None) for a, e in prod.atoms)
 
 
 def _subtracts(tree: tuple) -> bool:

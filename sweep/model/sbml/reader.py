@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import keyword
 import math
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -24,7 +25,7 @@ from sweep.spec import inputs
 from sweep.errors import SpecError
 from sweep.model.sbml import initial as initial_values
 from sweep.model.sbml import laws, rules, volume
-from sweep.model.sbml.math import AVOGADRO
+from sweep.model.sbml.math import AVOGADRO, TIME
 from sweep.model.sbml.reactions import convert
 from sweep.model.sbml.units import molecules_per
 
@@ -159,7 +160,10 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     _extent(ctx)
     ctx.values.update({p.getId(): p.getValue() for p in model.getListOfParameters()
                        if p.isSetValue() and p.getId() not in ctx.assigned_targets})
+    if TIME not in ctx.taken:
+        ctx.values[TIME] = 0.0  # t = 0 where initial assignments read it (SBML L3V2 section 3.4.6); see _time
     initial = _species(ctx)
+    rules.promote(ctx, initial, _Species)
     ctx.all_species = frozenset(s.getId() for s in model.getListOfSpecies())
     ctx.species_ids = frozenset(ctx.species)
     ctx.beta = {s: info.beta for s, info in ctx.species.items()}
@@ -173,14 +177,32 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     reactions = {}
     for reaction in model.getListOfReactions():
         reactions.update(convert(ctx, reaction))
-    observed = rules.observables(ctx, lambda tree, beta: laws.to_counts(tree, laws.names(tree) & ctx.species_ids,
-                                                                        ctx.beta, beta))
+    _time(ctx, reactions)
+    counts = lambda tree, beta: laws.to_counts(tree, laws.names(tree) & ctx.species_ids, ctx.beta, beta)  # noqa: E731
+    reactions.update(rules.rate_reactions(ctx, counts))
+    observed = rules.observables(ctx, counts)
     volume.describe_counts(ctx, initial, model_volume)
     _refuse(ctx)
     parameters = {name: float(value) for name, value in ctx.values.items()}
     table = {"species": initial, "parameters": parameters, "reactions": reactions}
     return Imported(table, tuple((n, t) for n, t in ctx.derived.items()), tuple(ctx.aliases.items()),
                     tuple(ctx.notes), tuple(ctx.ode_only), tuple(observed.items()), volume.time_unit(model))
+
+
+def _time(ctx: _Context, reactions: dict) -> None:
+    """The time csymbol: a parameter the ODE sets to t (``Network.time_slot``); ODE only in laws."""
+    pattern = re.compile(rf"\b{TIME}\b")
+    in_laws = [r for r, e in reactions.items() if pattern.search(e.get("propensity", ""))]
+    if TIME in ctx.taken:
+        if in_laws or any(pattern.search(t) for t in ctx.derived.values()):
+            ctx.problems.append(f"id {TIME!r}: the name the import gives SBML's time csymbol; rename it")
+        return
+    if not (in_laws or any(pattern.search(t) for t in ctx.derived.values())):
+        ctx.values.pop(TIME, None)  # nothing reads the time: no such parameter
+    for rid in in_laws:
+        ctx.ode_only.append((f"reaction {rid}", "its law reads the time csymbol (it changes between reaction "
+                             "events, which the exact and leaping methods hold piecewise constant); only "
+                             "method = \"ode\" evaluates it at every step"))
 
 
 def _refuse(ctx: _Context) -> None:

@@ -8,9 +8,13 @@ symbol's own units), so the law's dependency graph follows the species ``f`` rea
 species is then listed as an observable (``f`` in molecules: ``beta * f`` with counts
 substituted), and so is a rule-set parameter that reads species.
 
-A rate rule ``dT/dt = f`` changes ``T`` continuously. Only a deterministic method could honour
-it, and ours integrates reactions only (a rate rule's right-hand side may be negative, while a
-law's value is clamped at 0), so rate rules are refused with that reason for every method.
+A rate rule ``dT/dt = f`` changes ``T`` continuously. Only the deterministic method honours it:
+the import records it in ``ctx.ode_only`` (a spec with another method is refused, naming the
+rule), makes a rule-set parameter a state variable (``promote``), and writes the rule as two
+channels ``0 -> T`` at ``max(g, 0)`` and ``T -> 0`` at ``max(-g, 0)`` with ``g = beta * f`` over
+counts (``rate_reactions``): their difference is ``dT/dt`` exactly, although each law is
+clamped at 0. Like every state of the ODE, ``T`` is read clipped at 0 by the laws, so a
+variable that starts negative is refused (a membrane voltage is not a molecule number).
 """
 
 from __future__ import annotations
@@ -39,16 +43,21 @@ def collect(ctx) -> None:
         if reference is not None and reference.getId() == target and model.getSpecies(target) is None:
             ctx.problems.append(f"{where}: rules for stoichiometries are not supported")
             continue
-        if rule.isRate():
-            ctx.refused_rules[target] = where
-            ctx.problems.append(f"{where}: rate rules are not supported (the ODE method integrates reactions "
-                                "only, whose laws are clamped at 0; a rate rule's right-hand side can be negative)")
-            continue
         tree = from_ast(rule.getMath(), env, ctx.functions, ctx.problems, where)
         if tree is None:
             ctx.refused_rules[target] = where
             continue
-        ctx.assigned[target] = tree
+        if rule.isRate():
+            if target not in ctx.species:
+                if target not in ctx.values:
+                    ctx.problems.append(f"{where}: its variable has no usable initial value")
+                ctx.refused_rules[target] = where
+                continue
+            ctx.rated[target] = tree
+            ctx.ode_only.append((where, "a rate rule changes its variable continuously; only method = \"ode\" "
+                                 "integrates it"))
+        else:
+            ctx.assigned[target] = tree
 
 
 def targets(model) -> tuple[set[str], set[str]]:
@@ -127,4 +136,43 @@ def observables(ctx, to_counts) -> dict[str, str]:
             if read - ctx.species_ids - set(ctx.values):
                 continue  # reads something that is not a value (its problem is listed elsewhere)
             out[target] = render(to_counts(full, beta))
+    return out
+
+
+def promote(ctx, initial: dict, species_record) -> None:
+    """A parameter set by a rate rule becomes a state variable (initial value: the parameter's)."""
+    for rule in ctx.model.getListOfRules():
+        target = rule.getVariable()
+        if not rule.isRate() or ctx.model.getParameter(target) is None:
+            continue
+        where = f"rate rule for {target}"
+        value = ctx.values.pop(target, None)
+        if value is None:
+            ctx.problems.append(f"{where}: the parameter has no value to start from")
+            continue
+        if not value >= 0:
+            ctx.problems.append(f"{where}: its variable starts at {value:g}; the ODE's state is a molecule number, "
+                                "read clipped at 0, so a variable that can be negative is not supported")
+            continue
+        ctx.species[target] = species_record("", 1.0, "amount", True)
+        initial[target] = float(value) if value != int(value) else int(value)
+        ctx.notes.append((f"parameter {target}", "changed by a rate rule: a state variable of the ODE "
+                          "(a column of counts), starting at its value"))
+
+
+def rate_reactions(ctx, to_counts) -> dict[str, dict]:
+    """Two channels per rate rule, ``0 -> T`` at max(g, 0) and ``T -> 0`` at max(-g, 0)."""
+    from sweep.model.sbml.math import render
+
+    out = {}
+    for target, tree in ctx.rated.items():
+        where = f"rate rule for {target}"
+        full = inline(ctx, tree, where)
+        if full is None:
+            continue
+        g = to_counts(full, ctx.species[target].beta)
+        up, down = ctx.fresh(f"{target}__rate_up"), ctx.fresh(f"{target}__rate_down")
+        out[up] = {"reaction": f"0 -> {target}", "propensity": render(("call", "max", (g, ("num", 0.0))))}
+        out[down] = {"reaction": f"{target} -> 0", "propensity": render(("call", "max", (("neg", g), ("num", 0.0))))}
+        ctx.notes.append((where, f"d{target}/dt = {render(full)} -> channels {up} and {down} (ODE only)"))
     return out

@@ -41,6 +41,10 @@ def molecules_per(unit_id: str, model, what: str, problems: list[str],
         return 1.0
     if unit_id == "mole":
         return AVOGADRO
+    if unit_id == "dimensionless":
+        if notes is not None and ("unit dimensionless", _ITEMS.format(unit_id, 1.0)) not in notes:
+            notes.append(("unit dimensionless", _ITEMS.format(unit_id, 1.0)))
+        return 1.0
     definition = model.getUnitDefinition(unit_id) if model is not None else None
     if definition is None:
         problems.append(f"{what}: {unit_id!r} is not a substance unit (use mole, item, or a unit definition of one)")
