@@ -37,6 +37,10 @@ class Network(NamedTuple):
     law : RateLaw or None
         The generated callbacks of the custom laws (``kernels.ratelaw``). With laws, a kernel's
         ``rates`` holds the R mass-action constants followed by the parameters the laws read.
+    time_slot : int
+        Where a law reads the time (``sweep.model.tables.TIME``, from SBML's time csymbol): the
+        deterministic method writes t into ``rates[time_slot]`` before evaluating the laws; -1
+        when no law reads it. Only the ODE honours it (a spec refuses it for the other methods).
     """
 
     reactant_idx: np.ndarray
@@ -47,6 +51,7 @@ class Network(NamedTuple):
     dep_idx: np.ndarray
     law_mask: np.ndarray
     law: RateLaw | None = None
+    time_slot: int = -1  # index in ``rates`` the ODE sets to t before each law call (-1: no law reads time)
 
     @property
     def n_reactions(self) -> int:

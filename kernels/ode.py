@@ -15,7 +15,9 @@ Choices:
   are the same stochastic c_j the other methods take, so a sweep can switch methods unchanged.
   Each x_s is clipped at 0 inside the rate law, so a species at 0 is never consumed further.
 - **Solver.** ``scipy.integrate.solve_ivp`` with LSODA by default (switches between Adams and
-  BDF as stiffness demands; Petzold 1983, SIAM J. Sci. Stat. Comput. 4:136), or BDF
+  BDF as stiffness demands; Petzold 1983, SIAM J. Sci. Stat. Comput. 4:136) for at most
+  ``LSODA_BUDGET`` right-hand-side evaluations, then BDF from the start for the rest of the cap
+  (a work bound, so a stiff model never crawls under LSODA and the result is machine-independent), or BDF
   (``ode_method="BDF"``), tolerances ``RTOL`` and ``ATOL`` (molecule numbers), the analytic
   Jacobian, and the sample times as ``t_eval``. The right-hand side and Jacobian are numba
   functions; only the solver's loop runs in Python.
@@ -50,6 +52,7 @@ COUNTS_DTYPE = METHODS["ode"].counts_dtype
 ODE_METHODS = ("LSODA", "BDF")
 DEFAULT_ODE_METHOD = "LSODA"
 RTOL = 1e-8
+LSODA_BUDGET = 50_000  # right-hand-side evaluations before a LSODA solve falls back to BDF
 ATOL = 1e-8  # molecules: far below one molecule; RTOL governs the large values
 
 
@@ -141,12 +144,15 @@ class _System:
         self.laws = (network.law_mask, rates, addresses(network)[1])
         self.args = (scaled, network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val)
         self.max_events = max_events
+        self.time_slot = network.time_slot
         self.calls = 0
 
     def rhs(self, t: float, x: np.ndarray) -> np.ndarray:
         if self.calls >= self.max_events:
             raise _EventCap
         self.calls += 1
+        if self.time_slot >= 0:
+            self.laws[1][self.time_slot] = t  # a law that reads the time (Network.time_slot)
         dx = _rhs(x, self.args[0], *self.laws, *self.args[1:])
         if not np.isfinite(dx).all():
             raise _NonFinite
@@ -177,7 +183,7 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
         raise ValueError(f"ode_method must be one of {', '.join(ODE_METHODS)}, got {ode_method!r}")
     x0 = np.ascontiguousarray(x0, dtype=np.float64)
     times = np.ascontiguousarray(times, dtype=np.float64)
-    rates = np.ascontiguousarray(rates, dtype=np.float64)
+    rates = np.array(rates, dtype=np.float64)  # a copy: a law reading the time has t written into it
     scaled = _scaled_rates(network, rates[:network.n_reactions])
     row = np.empty((times.shape[0], x0.shape[0]), dtype=COUNTS_DTYPE)
     row[:] = x0
@@ -188,21 +194,35 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     if not np.isfinite(a).all():
         row[:] = -1.0
         return row, STATUS_NUMERICAL, 0
-    if not later.any() or not a.any():
-        return row, 0, 0  # nothing to integrate, or x0 is an equilibrium (every rate is 0 there)
+    if not later.any() or (not a.any() and network.time_slot < 0):
+        # nothing to integrate, or x0 is an equilibrium (every rate is 0 there and no law reads t)
+        return row, 0, 0
     # solve_ivp wants strictly increasing t_eval: solve on the distinct times, then spread back
     t_eval, where = np.unique(times[later], return_inverse=True)
-    system = _System(network, scaled, rates, int(max_events))
-    # the analytic Jacobian covers mass action only; with custom laws the solver differences
-    try:
-        sol = solve_ivp(system.rhs, (0.0, float(t_eval[-1])), x0, method=ode_method, t_eval=t_eval,
-                        jac=system.jac if network.law is None else None, rtol=rtol, atol=atol)
-    except _EventCap:
-        row[later] = -1.0
-        return row, STATUS_EVENT_CAP, system.calls
-    except _NonFinite:
-        row[:] = -1.0
-        return row, STATUS_NUMERICAL, system.calls
+    # LSODA first, within a work bound: a stiff model can make it crawl for minutes where BDF takes
+    # a second (LSODA's stiffness switch misjudges some models), so past LSODA_BUDGET evaluations the
+    # solve restarts with BDF for the rest of max_events. The bound counts work, not seconds, so
+    # the result stays the same on every machine.
+    budget = min(int(max_events), LSODA_BUDGET) if ode_method == "LSODA" else int(max_events)
+    spent = 0
+    while True:
+        system = _System(network, scaled, rates, budget)
+        try:
+            # the analytic Jacobian covers mass action only; with custom laws the solver differences
+            sol = solve_ivp(system.rhs, (0.0, float(t_eval[-1])), x0, method=ode_method, t_eval=t_eval,
+                            jac=system.jac if network.law is None else None, rtol=rtol, atol=atol)
+            break
+        except _EventCap:
+            spent += system.calls
+            if ode_method == "LSODA" and spent < max_events:
+                ode_method, budget = "BDF", int(max_events) - spent
+                continue
+            row[later] = -1.0
+            return row, STATUS_EVENT_CAP, spent
+        except _NonFinite:
+            row[:] = -1.0
+            return row, STATUS_NUMERICAL, spent + system.calls
+    system.calls += spent
     if not sol.success or sol.y.shape[1] != t_eval.shape[0] or not np.isfinite(sol.y).all():
         row[:] = -1.0
         return row, STATUS_NUMERICAL, system.calls

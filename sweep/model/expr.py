@@ -39,6 +39,19 @@ _FUNCTIONS = {
     "exp": (np.exp, 1, 1),
     "log": (np.log, 1, 1),
     "sqrt": (np.sqrt, 1, 1),
+    "floor": (np.floor, 1, 1),  # rounds SBML initial assignments to whole counts: floor(v + 0.5)
+    "ceil": (np.ceil, 1, 1),
+    "sin": (np.sin, 1, 1), "cos": (np.cos, 1, 1), "tan": (np.tan, 1, 1),
+    "sinh": (np.sinh, 1, 1), "cosh": (np.cosh, 1, 1), "tanh": (np.tanh, 1, 1),
+    # comparisons as indicators (1.0 true, 0.0 false), for SBML piecewise; and/or/not are min/max/1-x
+    "lt": (lambda a, b: np.less(a, b).astype(np.float64), 2, 2),
+    "le": (lambda a, b: np.less_equal(a, b).astype(np.float64), 2, 2),
+    "gt": (lambda a, b: np.greater(a, b).astype(np.float64), 2, 2),
+    "ge": (lambda a, b: np.greater_equal(a, b).astype(np.float64), 2, 2),
+    "eq": (lambda a, b: np.equal(a, b).astype(np.float64), 2, 2),
+    "ne": (lambda a, b: np.not_equal(a, b).astype(np.float64), 2, 2),
+    # piecewise(v1, c1, v2, c2, ..., otherwise): the first v whose c is non-zero, else otherwise
+    "piecewise": (None, 3, None),
     "min": (np.minimum, 2, None),
     "max": (np.maximum, 2, None),
     # the named rate laws, written as their spelled-out forms (kernels.ratelaw compiles the same)
@@ -46,7 +59,8 @@ _FUNCTIONS = {
     "hill_down": (lambda x, vmax, k, n: vmax * k ** n / (k ** n + x ** n), 4, 4),
     "michaelis": (lambda s, vmax, km: vmax * s / (km + s), 3, 3),
 }
-_ALLOWED = ("numbers, names, + - * / **, parentheses and min, max, exp, log, sqrt, "
+_ALLOWED = ("numbers, names, + - * / **, parentheses and min, max, exp, log, sqrt, floor, ceil, sin, cos, tan, "
+            "sinh, cosh, tanh, lt, le, gt, ge, eq, ne, piecewise, "
             "hill_up, hill_down, michaelis")
 
 
@@ -161,11 +175,14 @@ def _call(node: ast.Call, sub, refuse) -> tuple:
     if not isinstance(node.func, ast.Name) or node.func.id not in _FUNCTIONS:
         called = node.func.id if isinstance(node.func, ast.Name) else _describe(node.func)
         raise refuse(f"calling {called!r} is",
-                     "the functions are min, max, exp, log, sqrt, hill_up, hill_down, michaelis")
+                     f"allowed: {_ALLOWED}")
     name = node.func.id
     if node.keywords or any(isinstance(a, ast.Starred) for a in node.args):
         raise refuse(f"keyword or starred arguments to {name}() are")
     _, fewest, most = _FUNCTIONS[name]
+    if name == "piecewise" and len(node.args) % 2 == 0:
+        raise refuse("piecewise() with an even number of arguments is",
+                     "piecewise(value1, condition1, ..., otherwise) takes an odd number")
     if len(node.args) < fewest or (most is not None and len(node.args) > most):
         wanted = f"exactly {fewest}" if most == fewest else f"at least {fewest}"
         raise refuse(f"{name}() with {len(node.args)} arguments is", f"{name}() takes {wanted}")
@@ -226,6 +243,11 @@ def _eval(node: tuple, values: Mapping[str, Any]) -> Any:
     if kind == "call":
         function, fewest, most = _FUNCTIONS[node[1]]
         args = [_eval(a, values) for a in node[2]]
+        if node[1] == "piecewise":
+            result = args[-1]
+            for k in range(len(args) - 3, -1, -2):
+                result = np.where(args[k + 1] != 0.0, args[k], result)
+            return np.asarray(result, dtype=np.float64)
         if len(args) == 1 or fewest == most:
             return function(*args)
         return functools.reduce(function, args)

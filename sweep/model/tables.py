@@ -40,6 +40,7 @@ _TERM = re.compile(r"^(?:(\d+)\s*\*?\s*)?([A-Za-z_][A-Za-z0-9_]*)$")
 _ARROW = "->"
 AVOGADRO = 6.02214076e23  # per mole, exact since the 2019 SI redefinition
 UNIT_SYSTEMS = ("molecules", "molar")
+TIME = "sbml_time"  # the parameter that stands for the simulation time in laws (SBML's time csymbol)
 
 
 @dataclass(frozen=True)
@@ -274,12 +275,13 @@ def _initial(value, param_names, source, field) -> int | str:
             raise SpecError(source, field, "initial count names an unknown parameter", value,
                             "give a whole number or the name of a parameter in [parameters]")
         return value
-    if (isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0
-            or value != int(value)):
-        raise SpecError(source, field, "initial count must be a whole number >= 0", value,
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value < 0:
+        raise SpecError(source, field, "initial count must be a number >= 0", value,
                         f"a finite whole number; at most {limits.MAX_COUNT:,} for the integer-state methods "
                         "(direct, nrm, tau_leap)")
-    return int(value)
+    # a fractional amount is a state only the real-valued methods (cle, ode) hold: sweep.spec refuses
+    # it for the others (sweep.spec.values)
+    return int(value) if value == int(value) else float(value)
 
 
 def _reaction(name, spec, species, param_names, source, field) -> Reaction:
@@ -339,9 +341,11 @@ def compile_network(model: Model) -> Network:
         dep_idx.extend(row)
         dep_ptr.append(len(dep_idx))
     law_mask = np.array([r.propensity is not None for r in model.reactions], dtype=np.int8)
+    laws_read = model.law_parameters
+    time_slot = n_r + laws_read.index(TIME) if TIME in laws_read else -1
     return Network(reactant_idx, reactant_mult, change_idx, change_val,
                    np.asarray(dep_ptr, dtype=np.int32), np.asarray(dep_idx, dtype=np.int32), law_mask,
-                   _rate_law(model, index))
+                   _rate_law(model, index), time_slot)
 
 
 def _readers(model: Model, index: Mapping[str, int]) -> list[list[int]]:
@@ -440,11 +444,11 @@ def rate_constants(model: Model, values: Mapping[str, float]) -> np.ndarray:
 def initial_counts(model: Model, values: Mapping[str, float]) -> np.ndarray:
     """Initial molecule counts for one point's parameter values.
 
-    int64; float64 only when a count is beyond int64, which a spec allows only for the methods
-    with a real-valued state (``sweep.spec`` caps the integer-state methods at int32).
+    int64; float64 only when a count is beyond int64 or not whole, which a spec allows only for
+    the methods with a real-valued state (``sweep.spec`` caps the integer-state methods at int32).
     """
     counts = [values[v] if isinstance(v, str) else v for v in model.initial]
-    if all(abs(c) <= limits.INT64_MAX for c in counts):
+    if all(abs(c) <= limits.INT64_MAX and c == int(c) for c in counts):
         return np.array(counts, dtype=np.int64)
     return np.array([float(c) for c in counts], dtype=np.float64)
 

@@ -7,6 +7,7 @@ Layout of a spec::
 
     model = "reporter_model.toml"     # a model file (relative to this spec), or a [model] table;
                                       # a file ending in .xml or .sbml is read as SBML (sweep.sbml)
+    model_volume = 1e-15              # SBML only: system volume in litres (sweep.spec.imports)
 
     [run]
     method = "direct"                 # registered kernel
@@ -25,6 +26,7 @@ Layout of a spec::
     [time]
     end = 600.0                       # sample 0..end at `samples` evenly spaced times
     samples = 61                      # or: points = [0, 10, 100]
+    unit = "min"                      # optional label; an SBML model's timeUnits by default
 
     [parameters]                      # fixed values that override the model's
     g_p = 0.02
@@ -55,6 +57,7 @@ from sweep.batch import settings as clusters
 from sweep import design as designs
 from sweep.spec import diff as specdiff
 from sweep.model import expr as expressions
+from sweep.spec import imports as model_files
 from sweep.spec import inputs, limits
 from sweep.model import sbml
 from sweep.errors import SpecError
@@ -65,7 +68,7 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "run", "time", "parameters", "design", "derived", "cluster", "plot"}
+_TOP_KEYS = {"model", "model_volume", "run", "time", "parameters", "design", "derived", "cluster", "plot"}
 _PLOT_KEYS = {"species"}
 _RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options", "adaptive"}
 
@@ -100,6 +103,8 @@ class Spec:
     cluster: tuple[tuple[str, Any], ...] = ()
     # [plot] species: the species figures show when none is named; presentation only, like [cluster]
     plot_species: str | None = None
+    observables: tuple[tuple[str, str], ...] = ()  # SBML assignment rules that read species (name, expression)
+    time_unit: str = ""                              # [time] unit, else the SBML model's timeUnits
 
     @property
     def store_replicates(self) -> int:
@@ -223,7 +228,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     doc = _parse_toml(text, str(path))
     src = str(path)
     _unknown(doc, _TOP_KEYS, src, "")
-    model, imported = _load_model(doc, path, model_text)
+    model, imported = model_files.load_model(doc, path, model_text)
     if imported is not None:
         # an SBML model: dotted local-parameter names, and the parameters the import derives
         doc = sbml.adapt(doc, dict(imported.aliases), dict(imported.derived), src)
@@ -238,6 +243,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     if method in kernels.DETERMINISTIC and replicates != 1:
         raise SpecError(src, "run.replicates", f"method {method!r} is deterministic: one trajectory per point",
                         replicates, "set replicates = 1")
+    model_files.check_method(imported, method, src, str(doc.get("model")))
     options = _options(run.get("options", {}), method, src)
     per_task = _int(run, "replicates_per_task", src, "run", minimum=1,
                     default=min(replicates, DEFAULT_REPLICATES_PER_TASK))
@@ -252,6 +258,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
         inputs.check_path(named, src, "run.store")
         store_path = beside(path, named)
     times = _times(_sub(doc, "time", src, required=True), src)
+    time_unit = model_files.time_unit(_sub(doc, "time", src), imported, src)
     adaptive = None
     if "adaptive" in run:
         adaptive = adaptives.parse(run["adaptive"], replicates, model.species, times,
@@ -275,6 +282,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
                 max_events, times, fixed, design, derived, options, adaptive,
                 model_notes=imported.notes if imported is not None else (),
+                observables=imported.observables if imported is not None else (), time_unit=time_unit,
                 cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()),
                 plot_species=_plot_species(_sub(doc, "plot", src), model, src))
     check_points(spec, src, _model_source(doc, path))
@@ -313,22 +321,6 @@ def _read(path: Path, src: str, field: str) -> str:
 
 def _parse_toml(text: str, src: str) -> dict:
     return inputs.parse_toml(text, src)
-
-
-def _load_model(doc: Mapping[str, Any], path: Path, model_text: str) -> tuple[Model, sbml.Imported | None]:
-    src = str(path)
-    entry = doc.get("model")
-    if entry is None:
-        raise SpecError(src, "model", "missing", fix='add model = "my_model.toml" or a [model] table')
-    if isinstance(entry, str):
-        model_path = path.parent / entry
-        if sbml.is_sbml(model_path):
-            imported = sbml.read(model_text, str(model_path))
-            return parse_model(imported.table, str(model_path)), imported
-        return parse_model(_parse_toml(model_text, str(model_path)), str(model_path)), None
-    if isinstance(entry, dict):
-        return parse_model(entry, src, "model."), None
-    raise SpecError(src, "model", "must be a file name or a table", entry)
 
 
 def _sub(doc, key, src, required=False) -> dict:
@@ -392,7 +384,7 @@ def _str(table, key, src, prefix, default) -> str:
 
 
 def _times(table, src) -> tuple[float, ...]:
-    _unknown(table, {"end", "samples", "points"}, src, "time")
+    _unknown(table, {"end", "samples", "points", "unit"}, src, "time")
     if "points" in table:
         if "end" in table or "samples" in table:
             raise SpecError(src, "time", "give either points or end/samples, not both")

@@ -87,6 +87,10 @@ def _check_model_counts(spec: Spec, count_params: set[str], model_where: tuple[s
     for name, value in zip(spec.model.species, spec.model.initial):
         if not isinstance(value, str) and _too_large(value, spec.method):
             raise SpecError(source, f"{prefix}species.{name}", *_problem_value(value, spec.method))
+        if not isinstance(value, str) and value != int(value) and _count_limit(spec.method) < math.inf:
+            raise SpecError(source, f"{prefix}species.{name}", f"initial count {value:g} is not a whole number: the "
+                            f"{spec.method} method counts molecules", value,
+                            "give a whole number, or use a method with a real-valued state (cle, ode)")
     for name in sorted(count_params - set(spec.param_names) - {n for n, _ in spec.derived}):
         if kept[name] == model_values[name] and _too_large(model_values[name], spec.method):
             raise SpecError(source, f"{prefix}parameters.{name}", *_problem_value(model_values[name], spec.method))

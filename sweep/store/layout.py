@@ -249,6 +249,7 @@ def _attributes(spec: Spec, points: np.ndarray) -> dict:
         "replicates_per_task": spec.replicates_per_task,
         "max_events": spec.max_events,
         **({"default_species": spec.plot_species} if spec.plot_species else {}),
+        **({"time_unit": spec.time_unit} if spec.time_unit else {}),  # plots and reports label time with it
         # what decides the bytes (sweep.identity): a resume must match it
         "identity": fingerprint,
         "identity_sha256": identity.digest(fingerprint),

@@ -267,8 +267,8 @@ def sbml_unsupported_math(rng):
         "<piecewise><piece><cn>1</cn><apply><gt/><ci>A</ci><cn>1</cn></apply></piece></piecewise>",
         '<apply><times/><ci>k</ci><csymbol encoding="text" definitionURL="http://www.sbml.org/sbml/symbols/time">t'
         "</csymbol></apply>",
-        "<apply><sin/><ci>A</ci></apply>",
-        "<apply><eq/><ci>A</ci><cn>1</cn></apply>",
+        "<apply><arcsin/><ci>A</ci></apply>",  # sin, eq and piecewise with otherwise are read since issue 16
+        "<apply><xor/><apply><gt/><ci>A</ci><cn>1</cn></apply><apply><lt/><ci>A</ci><cn>5</cn></apply></apply>",
         "<apply><ci>undefined_function</ci><ci>A</ci></apply>",
         "<apply><times/><ci>k</ci><ci>nobody</ci></apply>",
         "<apply><divide/><ci>k</ci></apply>",
@@ -305,7 +305,8 @@ def sbml_not_sbml(rng):
         '<?xml version="1.0"?><!DOCTYPE lolz [<!ENTITY lol "lol"><!ENTITY lol2 "&lol;&lol;&lol;">]>'
         "<sbml>&lol2;</sbml>",
         VALID_SBML.replace('substanceUnits="item"', ""),
-        VALID_SBML.replace('size="1e-15"', ""),
+        # no size and concentrations (a sizeless compartment of amounts is read since issue 16)
+        VALID_SBML.replace('size="1e-15"', "").replace('hasOnlySubstanceUnits="true"', 'hasOnlySubstanceUnits="false"'),
         VALID_SBML.replace("<kineticLaw>", "", 1),
         VALID_SBML.replace("<listOfReactions>", '<listOfEvents><event id="e"/></listOfEvents><listOfReactions>'),
     ])

@@ -188,6 +188,10 @@ def mass_action(tree: tuple, reactants: Mapping[str, int], species: set[str], be
         else:
             return None
     const_tree = build(1.0, constant) if constant else None
+    if abs(factor - 1.0) <= 4e-16 * 4:
+        # the molecules-per-unit factors cancelled but for rounding (N_A V / (N_A V) can be
+        # 0.9999999999999999): a factor this close to 1 is 1, so the law keeps the model's parameter
+        factor = 1.0
     return MassAction(factor, const_tree, tuple(sorted(catalysts)), used_falling)
 
 
@@ -202,7 +206,31 @@ def difference(tree: tuple) -> tuple[tuple, tuple] | None:
         return tree[1], tree[2]
     if tree[0] == "+" and tree[2][0] == "neg":
         return tree[1], tree[2][1]
+    if tree[0] == "+" and tree[1][0] == "neg":
+        return tree[2], tree[1][1]  # -backward + forward
     return None
+
+
+def factored_difference(tree: tuple) -> tuple[tuple, tuple, tuple] | None:
+    """``(F, forward, backward)`` when the law is ``F * (forward - backward)`` in any arrangement of
+    factors and divisors (``comp * (kf * A - kr * B)``, ``(Vf*a - Vr*b) / (1 + a + b)``), else None.
+
+    ``F`` is the product of the other factors (a tree, ``("num", 1.0)`` when there are none); the
+    difference must be the only factor that subtracts in the numerator.
+
+    Example
+    -------
+    >>> law = ("*", ("name", "c"), ("-", ("name", "A"), ("name", "B")))
+    >>> factored_difference(law)
+    (('name', 'c'), ('name', 'A'), ('name', 'B'))
+    """
+    prod = product(tree)
+    found = [(a, difference(a)) for a, e in prod.atoms if e == 1 and difference(a) is not None]
+    if len(found) != 1 or not math.isfinite(prod.coef):
+        return None
+    atom, (forward, backward) = found[0]
+    rest = {a: e for a, e in prod.atoms if a != atom}
+    return build(prod.coef, rest), forward, backward
 
 
 # ---- named laws -----------------------------------------------------------------------------
@@ -318,3 +346,6 @@ def _substitute(tree: tuple, env: Mapping[str, tuple]) -> tuple:
     if kind == "call":
         return ("call", tree[1], tuple(_substitute(a, env) for a in tree[2]))
     return (kind, *(_substitute(t, env) for t in tree[1:]))
+
+
+substitute = _substitute  # public: replace names by trees (initial assignments read species this way)

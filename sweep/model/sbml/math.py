@@ -7,8 +7,11 @@ one as unsupported, so the caller can list them all at once.
 
 Supported MathML: numbers (integer, real, e-notation, rational), names, ``plus``, ``minus``
 (unary and binary), ``times``, ``divide``, ``power``, ``root`` (any degree), ``exp``, ``ln``,
-``log`` (any base), ``abs`` (as ``max(x, -x)``), ``min``, ``max``, the constants e and pi, the
-Avogadro csymbol, and calls of the document's function definitions (inlined).
+``log`` (any base), ``abs`` (as ``max(x, -x)``), ``min``, ``max``, ``floor``, ``ceiling``, the
+trigonometric and hyperbolic sin/cos/tan, the constants e, pi, true and false, the Avogadro
+csymbol, calls of the document's function definitions (inlined), and ``piecewise`` with an
+``otherwise``, whose conditions (relations ``lt le gt ge eq neq``, ``and or not``) become
+indicators that are 1.0 when they hold (``and`` is their minimum, ``or`` their maximum).
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ from typing import Callable, Mapping
 
 from sweep.spec import limits
 AVOGADRO = 6.02214076e23  # exact since the 2019 SI redefinition (BIPM 2019)
+TIME = "sbml_time"  # the time csymbol; the same name as sweep.model.tables.TIME
 
 _MAX_DEPTH = limits.MAX_EXPRESSION_DEPTH
 _MAX_NODES = limits.MAX_EXPRESSION_NODES
@@ -110,6 +114,8 @@ def _walk(node, env, functions, found: list[str], depth: int, budget: _Budget) -
     if t == libsbml.AST_NAME:
         name = node.getName()
         return env.get(name, ("name", name))
+    if t == libsbml.AST_NAME_TIME and not isinstance(env, _Strict):
+        return ("name", TIME)  # only the ODE honours it (sweep.model.sbml.reader: ode_only)
     simple = _SIMPLE().get(t)
     if simple is not None:
         kids = [_walk(node.getChild(i), env, functions, found, depth + 1, budget)
@@ -231,13 +237,42 @@ def _log(kids, found):
     return ("num", 0.0)
 
 
-def _extremum(function: str) -> Callable:
+def _extremum(function: str, empty: float | None = None) -> Callable:
     def make(kids, found):
         if not kids:
+            if empty is not None:
+                return ("num", empty)
             found.append(f"{function} without arguments")
             return ("num", 0.0)
         return kids[0] if len(kids) == 1 else ("call", function, tuple(kids))
     return make
+
+
+def _relation(function: str) -> Callable:
+    """a < b (and chains a < b < c, MathML's n-ary form) as indicators: 1.0 when it holds."""
+    def make(kids, found):
+        if len(kids) < 2:
+            found.append(f"a comparison with {len(kids)} argument(s)")
+            return ("num", 0.0)
+        pairs = [("call", function, (kids[i], kids[i + 1])) for i in range(len(kids) - 1)]
+        return pairs[0] if len(pairs) == 1 else ("call", "min", tuple(pairs))
+    return make
+
+
+def _not(kids, found):
+    if len(kids) != 1:
+        found.append(f"not with {len(kids)} arguments")
+        return ("num", 0.0)
+    return ("-", ("num", 1.0), kids[0])
+
+
+def _piecewise(kids, found):
+    """MathML piecewise: libsbml lists value, condition pairs, then the otherwise value if any."""
+    if len(kids) % 2 == 0:
+        # no <otherwise>: undefined when no piece holds (SBML L3V2 section 3.4.9); refused, not guessed
+        found.append("piecewise without <otherwise> (its value is undefined when no condition holds)")
+        return ("num", 0.0)
+    return kids[0] if len(kids) == 1 else ("call", "piecewise", tuple(kids))
 
 
 def _abs(kids, found):
@@ -268,6 +303,27 @@ def _SIMPLE() -> dict:  # noqa: N802 - built on first use so that libsbml is imp
             libsbml.AST_FUNCTION_ABS: _abs,
             libsbml.AST_FUNCTION_MIN: _extremum("min"),
             libsbml.AST_FUNCTION_MAX: _extremum("max"),
+            libsbml.AST_FUNCTION_FLOOR: _unary("floor"),
+            libsbml.AST_FUNCTION_CEILING: _unary("ceil"),
+            libsbml.AST_FUNCTION_SIN: _unary("sin"),
+            libsbml.AST_FUNCTION_COS: _unary("cos"),
+            libsbml.AST_FUNCTION_TAN: _unary("tan"),
+            libsbml.AST_FUNCTION_SINH: _unary("sinh"),
+            libsbml.AST_FUNCTION_COSH: _unary("cosh"),
+            libsbml.AST_FUNCTION_TANH: _unary("tanh"),
+            libsbml.AST_RELATIONAL_LT: _relation("lt"),
+            libsbml.AST_RELATIONAL_LEQ: _relation("le"),
+            libsbml.AST_RELATIONAL_GT: _relation("gt"),
+            libsbml.AST_RELATIONAL_GEQ: _relation("ge"),
+            libsbml.AST_RELATIONAL_EQ: _relation("eq"),
+            libsbml.AST_RELATIONAL_NEQ: _relation("ne"),
+            # on indicators (0 or 1): and is the minimum, or the maximum, not is 1 - x
+            libsbml.AST_LOGICAL_AND: _extremum("min", empty=1.0),
+            libsbml.AST_LOGICAL_OR: _extremum("max", empty=0.0),
+            libsbml.AST_LOGICAL_NOT: _not,
+            libsbml.AST_CONSTANT_TRUE: lambda kids, found: ("num", 1.0),
+            libsbml.AST_CONSTANT_FALSE: lambda kids, found: ("num", 0.0),
+            libsbml.AST_FUNCTION_PIECEWISE: _piecewise,
         }
     return _TABLES["simple"]
 
@@ -388,59 +444,5 @@ def _wrap(tree: tuple, parent: int, strict: bool) -> str:
     return text
 
 
-# ---- our tree -> MathML (for export) ---------------------------------------------------------
-
-PLACEHOLDER = "__sweep_number_{}__"
-
-
-def to_ast(tree: tuple, numbers: list[float] | None = None):
-    """Build a libsbml ``ASTNode`` from a tree (for export). Calls keep their names.
-
-    libsbml writes numbers with 15 significant digits; a number that needs more is written as
-    the name ``PLACEHOLDER.format(i)`` with its value appended to ``numbers`` (when given), for
-    the caller to put back in full (``sweep.model.sbml.writer``).
-
-    Example
-    -------
-    >>> import libsbml
-    >>> libsbml.formulaToL3String(to_ast(("*", ("name", "c"), ("name", "A"))))
-    'c * A'
-    """
-    import libsbml
-
-    kind = tree[0]
-    if kind == "num":
-        value = float(tree[1])
-        if numbers is not None and float(f"{value:.15g}") != value:
-            numbers.append(value)
-            return to_ast(("name", PLACEHOLDER.format(len(numbers) - 1)))
-        node = libsbml.ASTNode(libsbml.AST_INTEGER if value.is_integer() and abs(value) < 2**31 else libsbml.AST_REAL)
-        if value.is_integer() and abs(value) < 2**31:
-            node.setValue(int(value))
-        else:
-            node.setValue(value)
-        return node
-    if kind == "name":
-        node = libsbml.ASTNode(libsbml.AST_NAME)
-        node.setName(tree[1])
-        return node
-    if kind == "neg":
-        node = libsbml.ASTNode(libsbml.AST_MINUS)
-        node.addChild(to_ast(tree[1], numbers))
-        return node
-    if kind == "call":
-        builtin = {"exp": libsbml.AST_FUNCTION_EXP, "log": libsbml.AST_FUNCTION_LN,
-                   "sqrt": libsbml.AST_FUNCTION_ROOT, "min": libsbml.AST_FUNCTION_MIN,
-                   "max": libsbml.AST_FUNCTION_MAX}.get(tree[1])
-        node = libsbml.ASTNode(builtin if builtin is not None else libsbml.AST_FUNCTION)
-        if builtin is None:
-            node.setName(tree[1])
-        for arg in tree[2]:
-            node.addChild(to_ast(arg, numbers))
-        return node
-    op_type = {"+": libsbml.AST_PLUS, "-": libsbml.AST_MINUS, "*": libsbml.AST_TIMES,
-               "/": libsbml.AST_DIVIDE, "**": libsbml.AST_POWER}[kind]
-    node = libsbml.ASTNode(op_type)
-    node.addChild(to_ast(tree[1], numbers))
-    node.addChild(to_ast(tree[2], numbers))
-    return node
+# our tree -> MathML, for export, lives in its own module; named here too for the callers
+from sweep.model.sbml.mathml import PLACEHOLDER, to_ast  # noqa: E402,F401

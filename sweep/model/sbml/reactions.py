@@ -3,11 +3,15 @@
 Decisions, in order:
 
 1. the law is mass action over the reactants (``laws.mass_action``): ``rate = c``;
-2. the reaction is reversible and its law is ``forward - backward``, each mass action over
-   the reactants and the products respectively: two reactions ``<id>_fwd`` and ``<id>_rev``;
-3. the reaction is reversible and its law subtracts anywhere else (it can go negative):
+2. the reaction is reversible and its law is ``F * (forward - backward)`` in any arrangement of
+   factors (``laws.factored_difference``), each part mass action over the reactants and the
+   products respectively: two reactions ``<id>_fwd`` and ``<id>_rev``;
+3. the same shape with other laws (``(Vf*a/Ka - Vr*b/Kb) / (1 + a/Ka + b/Kb)``), where the
+   forward part reads no product-only species and the backward part no reactant-only species:
+   two reactions with custom laws ``F*f`` and ``F*g`` (a modelling choice, docs/sbml.md);
+4. the reaction is reversible and its law subtracts anywhere else (it can go negative):
    refused, for every method (propensities are clamped at 0, so a net rate cannot be kept);
-4. otherwise a custom propensity: named laws where the law (or a term of a sum) has their
+5. otherwise a custom propensity: named laws where the law (or a term of a sum) has their
    shape, else the law with counts substituted (``laws.propensity``).
 
 Boundary and constant species never change: in a mass-action reaction they keep their place
@@ -22,8 +26,8 @@ from typing import Any, Mapping
 
 from sweep.model import expr as expressions
 from sweep.spec import limits
-from sweep.model.sbml import laws
-from sweep.model.sbml.math import from_ast, render
+from sweep.model.sbml import laws, rules
+from sweep.model.sbml.math import TIME, from_ast, render
 
 
 def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
@@ -40,9 +44,10 @@ def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
         return {}
     formula = _formula(reaction)
     species, beta = ctx.species_ids, ctx.beta
-    if reaction.getReversible() and not _subtracts(tree):
+    if reaction.getReversible() and not _net(tree):
         ctx.notes.append((where, "declared reversible, but its law has no backward term: it runs forward only"))
-    ma = laws.mass_action(tree, reactants, species, beta, ctx.alpha_e)
+    timed = TIME in laws.names(tree)  # a time-dependent law is never a constant times counts
+    ma = None if timed else laws.mass_action(tree, reactants, species, beta, ctx.alpha_e)
     if ma is not None:
         rate, shown = _rate(ctx, rid, ma)
         ctx.notes.append((where, f"{formula} -> mass action, c = {shown}"))
@@ -51,7 +56,7 @@ def convert(ctx, reaction) -> dict[str, dict[str, Any]]:
         split = _split(ctx, rid, tree, reactants, products, formula)
         if split is not None:
             return split
-        if _subtracts(tree):
+        if _net(tree):
             ctx.problems.append(
                 f"{where}: reversible, and its law ({formula}) is not a difference of two mass-action terms "
                 "(forward over the reactants minus backward over the products), so its net rate can be negative; "
@@ -81,6 +86,8 @@ def _side(ctx, refs, where: str, role: str) -> dict[str, int] | None:
                                 f"{limits.MAX_STOICHIOMETRY:,} describe molecules")
             ok = False
             continue
+        if sid in ctx.ruled_species:
+            continue  # set by an assignment rule (a boundary species): no reaction changes it, laws read its rule
         if sid not in ctx.species:
             ok = False  # its own problem is already listed
             continue
@@ -106,15 +113,23 @@ def _law(ctx, reaction, where: str) -> tuple | None:
             continue
         ctx.values[internal] = float(lp.getValue())
     tree = from_ast(law.getMath(), env, ctx.functions, ctx.problems, f"{where} kinetic law")
+    if tree is not None:
+        tree = rules.inline(ctx, tree, f"{where} kinetic law")
     if tree is None:
         return None
     # membership tests, not set unions: building the sets for every reaction made import O(R x S)
     used = laws.names(tree)
     unknown = {n for n in used if n not in ctx.species and n not in ctx.values and n not in ctx.derived
                and n not in ctx.all_species}
+    sizeless = sorted(unknown & ctx.sizeless)
+    if sizeless:
+        ctx.problems.append(f"{where} kinetic law: reads the size of compartment {', '.join(sizeless)}, which has "
+                            "no size; give it one")
+    unknown -= ctx.sizeless
     if unknown:
         ctx.problems.append(f"{where} kinetic law: reads {', '.join(sorted(unknown))}, which is not a species, "
                             "parameter or compartment (species references' ids are not supported in math)")
+    if unknown or sizeless:
         return None
     if any(n in ctx.all_species and n not in ctx.species for n in used):
         return None  # a species with its own problem
@@ -147,21 +162,56 @@ def add_derived(ctx, name: str, tree: tuple) -> None:
 
 
 def _split(ctx, rid: str, tree: tuple, reactants, products, formula: str) -> dict | None:
-    parts = laws.difference(tree)
+    """Two reactions for ``F * (f - g)``: mass action each where they are, else two custom laws."""
+    parts = laws.factored_difference(tree)
     if parts is None:
         return None
+    common, f, g = parts
+    forward, backward = ((t if common == ("num", 1.0) else ("*", common, t)) for t in (f, g))
     species, beta = ctx.species_ids, ctx.beta
-    forward = laws.mass_action(parts[0], reactants, species, beta, ctx.alpha_e)
-    backward = laws.mass_action(parts[1], products, species, beta, ctx.alpha_e)
-    if forward is None or backward is None:
-        return None
+    timed = TIME in laws.names(tree)
+    fma = None if timed else laws.mass_action(forward, reactants, species, beta, ctx.alpha_e)
+    bma = None if timed else laws.mass_action(backward, products, species, beta, ctx.alpha_e)
     names = ctx.fresh(f"{rid}_fwd"), ctx.fresh(f"{rid}_rev")
+    if fma is not None and bma is not None:
+        out = {}
+        for name, ma, left, right in ((names[0], fma, reactants, products), (names[1], bma, products, reactants)):
+            rate, shown = _rate(ctx, name, ma)
+            out[name] = {"reaction": _mass_action_equation(ctx, left, right, ma.catalysts), "rate": rate}
+            ctx.notes.append((f"reaction {rid}", f"{formula} -> split: {name} mass action, c = {shown}"))
+        return out
+    only_products = set(products) - set(reactants)
+    only_reactants = set(reactants) - set(products)
+    if (_subtracts(f) or _subtracts(g) or _subtracts_species(common) or laws.names(f) & only_products
+            or laws.names(g) & only_reactants):
+        return None
+    # a modelling choice (docs/sbml.md): the net rate F (f - g) becomes two channels F f and F g;
+    # their difference is the law, exactly as the deterministic equations see it
     out = {}
-    for name, ma, left, right in ((names[0], forward, reactants, products), (names[1], backward, products, reactants)):
-        rate, shown = _rate(ctx, name, ma)
-        out[name] = {"reaction": _mass_action_equation(ctx, left, right, ma.catalysts), "rate": rate}
-        ctx.notes.append((f"reaction {rid}", f"{formula} -> split: {name} mass action, c = {shown}"))
+    for name, part, left, right in ((names[0], forward, reactants, products), (names[1], backward, products, reactants)):
+        propensity, _ = laws.propensity(part, species, beta, ctx.alpha_e)
+        out[name] = {"reaction": _equation(_drop_fixed(ctx, left), _drop_fixed(ctx, right)),
+                     "propensity": render(propensity)}
+        ctx.notes.append((f"reaction {rid}", f"{formula} -> split into two laws (forward over the reactants, "
+                          f"backward over the products): {name} = {render(part)}"))
     return out
+
+
+def _subtracts_species(tree: tuple) -> bool:
+    """A subtraction in a numerator factor of the shared part (it could turn both channels negative)."""
+    return any(e > 0 and _subtracts(a) for a, e in laws.product(tree).atoms)
+
+
+def _net(tree: tuple) -> bool:
+    """Whether the law is a net rate: it, or a factor of its numerator, is a difference.
+
+    A subtraction deeper down (inside a function call, a power, a denominator, an inlined
+    ``piecewise`` of the time) does not make the law change sign by itself.
+    """
+    if tree[0] == "neg":
+        return True
+    prod = laws.product(tree)
+    return prod.coef < 0 or any(e > 0 and (a[0] == "neg" or laws.difference(a) is not None) for a, e in prod.atoms)
 
 
 def _subtracts(tree: tuple) -> bool:

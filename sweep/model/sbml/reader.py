@@ -17,17 +17,22 @@ from __future__ import annotations
 
 import keyword
 import math
+import re
 from dataclasses import dataclass, field
 from typing import Any
 
-from sweep.model import expr as expressions
 from sweep.spec import inputs
 from sweep.errors import SpecError
-from sweep.model.sbml import laws
-from sweep.model.sbml.math import AVOGADRO, from_ast, render
+from sweep.model.sbml import initial as initial_values
+from sweep.model.sbml import laws, rules, volume
+from sweep.model.sbml.math import AVOGADRO, TIME
 from sweep.model.sbml.reactions import convert
 from sweep.model.sbml.units import molecules_per
 
+
+
+# our expression grammar parses with Python's own parser, so its keywords cannot be names
+_RESERVED = frozenset(keyword.kwlist)
 
 
 @dataclass(frozen=True)
@@ -45,12 +50,21 @@ class Imported:
         Local parameters: ``"r1.k"`` is the model parameter ``r1__k``.
     notes : tuple of (element, conversion)
         What was converted and how, for ``sweep check``.
+    ode_only : tuple of (element, reason)
+        Constructs only ``method = "ode"`` honours (rate rules); other methods refuse them.
+    observables : tuple of (name, expression text)
+        Assignment-rule targets that read species, as expressions over counts and parameters.
+    time_unit : str
+        The model's ``timeUnits`` in words ("" when not declared).
     """
 
     table: dict
     derived: tuple[tuple[str, str], ...]
     aliases: tuple[tuple[str, str], ...]
     notes: tuple[tuple[str, str], ...]
+    ode_only: tuple[tuple[str, str], ...] = ()
+    observables: tuple[tuple[str, str], ...] = ()
+    time_unit: str = ""
 
 
 @dataclass
@@ -80,6 +94,15 @@ class _Context:
     all_species: frozenset = frozenset()                # every species id in the document
     species_ids: frozenset = frozenset()                # the species that were read (ctx.species)
     beta: dict = field(default_factory=dict)            # species -> molecules per unit in math
+    assigned: dict = field(default_factory=dict)        # assignment-rule target -> tree (sweep.model.sbml.rules)
+    rated: dict = field(default_factory=dict)           # rate-rule target -> tree
+    refused_rules: dict = field(default_factory=dict)   # rule target -> "assignment rule for X" (math refused)
+    ruled_species: dict = field(default_factory=dict)   # assignment-rule species -> molecules per unit
+    sizeless: set = field(default_factory=set)          # compartments without a size
+    ode_only: list = field(default_factory=list)        # (element, reason): only method = "ode" honours it
+    scale: float = 1.0                                  # model volume / the model's own volume
+    assigned_targets: set = field(default_factory=set)  # assignment-rule targets (read before the rest)
+    initially_assigned: set = field(default_factory=set)  # initial-assignment symbols
 
     def fresh(self, base: str) -> str:
         """A model name not used by the document or by another generated name."""
@@ -89,7 +112,7 @@ class _Context:
         return base
 
 
-def read(text: str, source: str) -> Imported:
+def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     """Import an SBML document (text) into a model table and its conversion notes.
 
     Parameters
@@ -98,6 +121,9 @@ def read(text: str, source: str) -> Imported:
         The SBML file's content (Level 2 is converted to Level 3 Version 2 first).
     source : str
         The file name, for error messages.
+    model_volume : float, optional
+        The system volume in litres (a spec's ``model_volume``): every molecules-per-mole factor
+        is scaled by model_volume / the model's own volume (``sweep.model.sbml.volume``).
 
     Returns
     -------
@@ -116,84 +142,143 @@ def read(text: str, source: str) -> Imported:
     """
     ctx = _Context(source)
     inputs.check_xml(text, source)  # nesting and size, before libsbml (which crashes on deep nesting)
-    ctx.model, ctx.converted = _document(text, source)
+    ctx.model, ctx.converted = _document(text, source, ctx.notes)
     model = ctx.model
     _unsupported_elements(ctx)
     ctx.functions = {f.getId(): f for f in model.getListOfFunctionDefinitions()}
     ctx.taken = {e.getId() for lst in (model.getListOfSpecies(), model.getListOfParameters(),
                                         model.getListOfCompartments(), model.getListOfReactions(),
                                         model.getListOfFunctionDefinitions()) for e in lst}
-    for name in sorted(ctx.taken & set(keyword.kwlist)):
+    for name in sorted(ctx.taken & _RESERVED):
         ctx.problems.append(f"id {name!r}: a reserved word of our expression grammar (Python's); rename it")
+    if ctx.taken & _RESERVED:
+        _refuse(ctx)  # now: every law that read the name would fail to parse, with a confusing message
+    ctx.assigned_targets, _ = rules.targets(model)
+    ctx.initially_assigned = {a.getSymbol() for a in model.getListOfInitialAssignments()}
     _compartments(ctx)
+    ctx.scale = volume.scale(ctx, model_volume)
     _extent(ctx)
-    ctx.values.update({p.getId(): p.getValue() for p in model.getListOfParameters() if p.isSetValue()})
+    ctx.values.update({p.getId(): p.getValue() for p in model.getListOfParameters()
+                       if p.isSetValue() and p.getId() not in ctx.assigned_targets})
+    if TIME not in ctx.taken:
+        ctx.values[TIME] = 0.0  # t = 0 where initial assignments read it (SBML L3V2 section 3.4.6); see _time
     initial = _species(ctx)
+    rules.promote(ctx, initial, _Species)
     ctx.all_species = frozenset(s.getId() for s in model.getListOfSpecies())
     ctx.species_ids = frozenset(ctx.species)
     ctx.beta = {s: info.beta for s, info in ctx.species.items()}
-    _initial_assignments(ctx, initial)
+    rules.collect(ctx)
+    initial_values.assign(ctx, initial)
     for p in model.getListOfParameters():
-        if not p.isSetValue() and p.getId() not in ctx.derived:
-            ctx.problems.append(f"parameter {p.getId()}: no value")
+        pid = p.getId()
+        if not p.isSetValue() and pid not in ctx.derived and pid not in ctx.assigned_targets \
+                and pid not in ctx.refused_rules:
+            ctx.problems.append(f"parameter {pid}: no value")
     reactions = {}
     for reaction in model.getListOfReactions():
         reactions.update(convert(ctx, reaction))
-    if ctx.problems:
-        listing = "\n  - ".join(ctx.problems)
-        raise SpecError(source, "", f"the SBML model uses {len(ctx.problems)} unsupported element(s):\n  - {listing}",
-                        fix="remove or rewrite them; docs/models.md, 'Models from SBML', lists what is supported")
+    _time(ctx, reactions)
+    counts = lambda tree, beta: laws.to_counts(tree, laws.names(tree) & ctx.species_ids, ctx.beta, beta)  # noqa: E731
+    reactions.update(rules.rate_reactions(ctx, counts))
+    observed = rules.observables(ctx, counts)
+    volume.describe_counts(ctx, initial, model_volume)
+    _refuse(ctx)
     parameters = {name: float(value) for name, value in ctx.values.items()}
     table = {"species": initial, "parameters": parameters, "reactions": reactions}
     return Imported(table, tuple((n, t) for n, t in ctx.derived.items()), tuple(ctx.aliases.items()),
-                    tuple(ctx.notes))
+                    tuple(ctx.notes), tuple(ctx.ode_only), tuple(observed.items()), volume.time_unit(model))
 
 
-def _document(text: str, source: str):
+def _time(ctx: _Context, reactions: dict) -> None:
+    """The time csymbol: a parameter the ODE sets to t (``Network.time_slot``); ODE only in laws."""
+    pattern = re.compile(rf"\b{TIME}\b")
+    in_laws = [r for r, e in reactions.items() if pattern.search(e.get("propensity", ""))]
+    if TIME in ctx.taken:
+        if in_laws or any(pattern.search(t) for t in ctx.derived.values()):
+            ctx.problems.append(f"id {TIME!r}: the name the import gives SBML's time csymbol; rename it")
+        return
+    if not (in_laws or any(pattern.search(t) for t in ctx.derived.values())):
+        ctx.values.pop(TIME, None)  # nothing reads the time: no such parameter
+    for rid in in_laws:
+        ctx.ode_only.append((f"reaction {rid}", "its law reads the time csymbol (it changes between reaction "
+                             "events, which the exact and leaping methods hold piecewise constant); only "
+                             "method = \"ode\" evaluates it at every step"))
+
+
+def _refuse(ctx: _Context) -> None:
+    if ctx.problems:
+        listing = "\n  - ".join(ctx.problems)
+        raise SpecError(ctx.source, "", f"the SBML model uses {len(ctx.problems)} unsupported element(s):\n"
+                        f"  - {listing}", fix="remove or rewrite them; docs/sbml.md lists what is supported")
+
+
+def _document(text: str, source: str, warnings: list):
     import libsbml
 
     doc = libsbml.readSBMLFromString(text)
-    _raise_errors(doc, source, "not readable as SBML")
+    _raise_errors(doc, source, "not readable as SBML", warnings)
     converted = doc.getLevel() < 3
     if converted:
         props = libsbml.ConversionProperties(libsbml.SBMLNamespaces(3, 2))
         props.addOption("setLevelAndVersion", True)
+        # not strict: the converter's own validation would stop at errors in annotations or in
+        # unit declarations, which the import does not read (the check below still runs)
+        props.addOption("strict", False)
         if doc.convert(props) != libsbml.LIBSBML_OPERATION_SUCCESS:
-            _raise_errors(doc, source, "cannot convert this SBML Level 2 model to Level 3 Version 2")
+            _raise_errors(doc, source, "cannot convert this SBML Level 2 model to Level 3 Version 2", warnings)
             raise SpecError(source, "", "cannot convert this SBML Level 2 model to Level 3 Version 2",
                             fix="save it as SBML Level 3")
     doc.setConsistencyChecks(libsbml.LIBSBML_CAT_UNITS_CONSISTENCY, False)
     doc.setConsistencyChecks(libsbml.LIBSBML_CAT_MODELING_PRACTICE, False)
     doc.checkConsistency()
-    _raise_errors(doc, source, "the SBML document is not valid")
+    _raise_errors(doc, source, "the SBML document is not valid", warnings)
     if doc.getModel() is None:
         raise SpecError(source, "", "the SBML document has no <model>")
     return doc.getModel(), converted
 
 
-def _raise_errors(doc, source: str, problem: str) -> None:
+# libsbml error ids about annotations and notes (SBML L3V2 section 3.2: neither carries math),
+# and the unit-consistency category, whose checks are switched off above (units are converted
+# by sweep.model.sbml.units from what decides the numbers, not validated)
+_HARMLESS_IDS = frozenset(range(10401, 10410)) | frozenset(range(10801, 10810))
+
+
+def _harmless(error) -> bool:
+    import libsbml
+
+    return error.getErrorId() in _HARMLESS_IDS or error.getCategory() == libsbml.LIBSBML_CAT_UNITS_CONSISTENCY
+
+
+def _raise_errors(doc, source: str, problem: str, warnings: list) -> None:
     import libsbml
 
     errors = [doc.getError(i) for i in range(doc.getNumErrors())]
     bad = [e for e in errors if e.getSeverity() in (libsbml.LIBSBML_SEV_ERROR, libsbml.LIBSBML_SEV_FATAL)]
-    if bad:
-        # libsbml's message is the rule, a reference, then what is wrong here: keep the last part
-        shown = "\n  - ".join(f"line {e.getLine()}: {e.getShortMessage()}: "
-                              f"{e.getMessage().strip().splitlines()[-1].strip()}" for e in bad[:5])
-        more = f"\n  ... and {len(bad) - 5} more" if len(bad) > 5 else ""
-        raise SpecError(source, "", f"{problem} ({len(bad)} error(s)):\n  - {shown}{more}",
+    harmless: dict[str, int] = {}
+    for e in bad:
+        if _harmless(e):
+            key = f"{e.getShortMessage()} (libsbml error {e.getErrorId()}, first at line {e.getLine()})"
+            harmless[key] = harmless.get(key, 0) + 1
+    # libsbml's message is the rule, a reference, then what is wrong here: keep the last part
+    shown = [f"line {e.getLine()}: {e.getShortMessage()}: {e.getMessage().strip().splitlines()[-1].strip()}"
+             for e in bad if not _harmless(e)]
+    doc.getErrorLog().clearLog()  # the next check appends to the same log: report each error once
+    for key, n in harmless.items():
+        times = f", {n} times" if n > 1 else ""
+        warnings.append(("warning", f"{key}{times}: not in math, so the import goes on"))
+    if shown:
+        more = f"\n  ... and {len(shown) - 5} more" if len(shown) > 5 else ""
+        listing = "\n  - ".join(shown[:5])
+        raise SpecError(source, "", f"{problem} ({len(shown)} error(s)):\n  - {listing}{more}",
                         fix="check the file with an SBML validator")
 
 
 def _unsupported_elements(ctx: _Context) -> None:
-    """Events, rules, constraints, conversion factors, fast reactions, required packages."""
+    """Events, constraints, conversion factors, fast reactions, required packages."""
     model, out = ctx.model, ctx.problems
     for i, event in enumerate(model.getListOfEvents()):
         out.append(f"event {event.getId() or '#' + str(i + 1)}: events are not supported")
-    for rule in model.getListOfRules():
-        kind = "algebraic" if rule.isAlgebraic() else "rate" if rule.isRate() else "assignment"
-        target = f" for {rule.getVariable()}" if rule.getVariable() else ""
-        out.append(f"{kind} rule{target}: rules are not supported")
+    # rules: sweep.model.sbml.rules
     for i, constraint in enumerate(model.getListOfConstraints()):
         out.append(f"constraint {constraint.getId() or '#' + str(i + 1)}: constraints are not checked during "
                    "a simulation, so they are refused rather than ignored")
@@ -224,9 +309,14 @@ def _unsupported_elements(ctx: _Context) -> None:
 def _compartments(ctx: _Context) -> None:
     for c in ctx.model.getListOfCompartments():
         cid = c.getId()
+        if not c.isSetSize() and cid not in ctx.initially_assigned:
+            # fine while nothing in it is a concentration and no law reads its size (checked there)
+            ctx.sizeless.add(cid)
+            ctx.notes.append((f"compartment {cid}", "no size: its species are amounts only"))
+            continue
         if not c.isSetSize() or not math.isfinite(c.getSize()) or c.getSize() <= 0:
             if not c.isSetSize():
-                ctx.problems.append(f"compartment {cid}: no size (needed to convert concentrations to counts)")
+                continue  # its initial assignment is refused (sweep.model.sbml.initial)
             else:
                 ctx.problems.append(f"compartment {cid}: size {c.getSize()} must be a finite number > 0")
             continue
@@ -248,8 +338,9 @@ def _extent(ctx: _Context) -> None:
             ctx.problems.append("model extentUnits: not declared, so a kinetic law's rate cannot be converted to "
                                 'molecules per time (declare extentUnits="mole" or "item" on <model>)')
         return
-    alpha = molecules_per(unit, model, "model extentUnits", ctx.problems)
+    alpha = molecules_per(unit, model, "model extentUnits", ctx.problems, ctx.notes)
     if alpha is not None:
+        alpha *= ctx.scale
         ctx.alpha_e = alpha
         time = f" per {model.getTimeUnits()}" if model.isSetTimeUnits() else " per model time unit"
         ctx.notes.append(("reaction rates", f"extent in {unit} (model {how}) = {alpha:.10g} molecules: "
@@ -267,17 +358,29 @@ def _species(ctx: _Context) -> dict[str, Any]:
             ctx.problems.append(f"species {sid}: substance units not declared (declare substanceUnits=\"item\" "
                                 "or \"mole\" on the species or on <model>)")
             continue
-        alpha = molecules_per(unit, model, f"species {sid} substanceUnits", ctx.problems)
-        size = ctx.compartments.get(s.getCompartment())
+        alpha = molecules_per(unit, model, f"species {sid} substanceUnits", ctx.problems, ctx.notes)
+        only = s.getHasOnlySubstanceUnits()
+        cid = s.getCompartment()
+        if cid in ctx.sizeless and not only:
+            ctx.problems.append(f"compartment {cid}: no size, and species {sid} in it is a concentration (the size "
+                                "converts it to counts): give the compartment a size, or declare the species "
+                                "hasOnlySubstanceUnits=\"true\"")
+            continue
+        size = 1.0 if cid in ctx.sizeless else ctx.compartments.get(cid)
         if alpha is None or size is None:
             continue
-        only = s.getHasOnlySubstanceUnits()
-        if not only and ctx.model.getCompartment(s.getCompartment()).getSpatialDimensionsAsDouble() == 0:
+        alpha *= ctx.scale
+        if not only and ctx.model.getCompartment(cid).getSpatialDimensionsAsDouble() == 0:
             ctx.problems.append(f"species {sid}: a concentration in a 0-dimensional compartment")
             continue
         beta = alpha if only else alpha * size
+        if sid in ctx.assigned_targets:
+            ctx.ruled_species[sid] = beta
+            ctx.notes.append((f"species {sid}", "set by an assignment rule: not a state variable; laws that read "
+                              "it read the rule's math, and it is an observable"))
+            continue
         fixed = s.getBoundaryCondition() or s.getConstant()
-        ctx.species[sid] = _Species(s.getCompartment(), beta, "amount" if only else "concentration", fixed)
+        ctx.species[sid] = _Species(cid, beta, "amount" if only else "concentration", fixed)
         reads = (f"laws read it as an amount in {unit} = count / {beta:.10g}" if only else
                  f"laws read it as a concentration = count / ({alpha:.10g} x {size:g}) = count / {beta:.10g}")
         held = "; held fixed (" + ("boundaryCondition" if s.getBoundaryCondition() else "constant") + ")" \
@@ -308,58 +411,6 @@ def _count(ctx: _Context, s, sid: str, alpha: float, size: float, unit: str, rea
     shown = f"{value:.10g}" if count == value else f"{value:.10g}, rounded to {count}"
     ctx.notes.append((f"species {sid}", f"{how} = {shown} molecules; {reads}"))
     return count
-
-
-def _initial_assignments(ctx: _Context, initial: dict[str, Any]) -> None:
-    """Initial assignments to parameters and species become derived parameters."""
-    env = {c: ("num", v) for c, v in ctx.compartments.items()}
-    parameters = {p.getId() for p in ctx.model.getListOfParameters()}
-    pending = []
-    for a in ctx.model.getListOfInitialAssignments():
-        symbol = a.getSymbol()
-        where = f"initial assignment to {symbol}"
-        if ctx.model.getParameter(symbol) is None and symbol not in ctx.species:
-            if ctx.model.getSpecies(symbol) is None:
-                ctx.problems.append(f"{where}: only parameters and species can be assigned initially")
-            continue
-        tree = from_ast(a.getMath(), env, ctx.functions, ctx.problems, where)
-        if tree is None:
-            continue
-        unknown = laws.names(tree) - parameters
-        if unknown:
-            ctx.problems.append(f"{where}: may use only parameters and numbers, not {', '.join(sorted(unknown))}")
-            continue
-        pending.append((symbol, tree))
-    for symbol, tree in pending:
-        if symbol in ctx.species:
-            beta = ctx.species[symbol].beta
-            if beta == 1.0 and tree[0] == "name":
-                initial[symbol] = tree[1]
-                continue
-            name = ctx.fresh(f"{symbol}__initial")
-            tree = tree if beta == 1.0 else ("*", ("num", beta), tree)
-            initial[symbol] = name
-        else:
-            name = symbol
-        ctx.derived[name] = render(tree)
-    _evaluate_derived(ctx)
-
-
-def _evaluate_derived(ctx: _Context) -> None:
-    """Values of the derived parameters at the model's own values (dependency order)."""
-    parsed = {n: expressions.parse(t, ctx.source, f"derived {n}") for n, t in ctx.derived.items()}
-    remaining = dict(parsed)
-    while remaining:
-        ready = [n for n, e in remaining.items() if not (set(e.names) & set(remaining))]
-        if not ready:
-            ctx.problems.append(f"initial assignments form a cycle: {', '.join(sorted(remaining))}")
-            return
-        for n in ready:
-            missing = [m for m in remaining[n].names if m not in ctx.values]
-            if missing:
-                del remaining[n]
-                continue
-            ctx.values[n] = float(expressions.evaluate(remaining.pop(n), ctx.values))
 
 
 __all__ = ["AVOGADRO", "Imported", "read"]
