@@ -129,7 +129,7 @@ OPTIONS: dict[str, dict[str, Rule]] = {name: dict(m.options) for name, m in METH
 DETERMINISTIC: frozenset[str] = frozenset(name for name, m in METHODS.items() if m.deterministic)
 
 # Where each exact method is fastest, by the number of reactions (measured on the built-in chain,
-# ring and random networks, NOTES-kernels.md): the direct method's search grows with R, the next
+# ring and random networks, docs/notes/kernels.md): the direct method's search grows with R, the next
 # reaction method's heap with log R, composition-rejection's cost per event hardly at all in
 # operations, but both grow alike with the cache misses of a large network, and nrm was the faster
 # of the two at every size measured (100 to 10,000 reactions).
@@ -153,7 +153,7 @@ def compiled(method: str, network: Network) -> bool:
 
     False only for a model with custom rate laws whose specialised kernel (``kernels.ratelaw``) was
     never compiled on this machine: its first call then compiles it (about 2 s cold, see
-    NOTES-kernels.md). Mass-action models use the package's own kernels, compiled once per install.
+    docs/notes/kernels.md). Mass-action models use the package's own kernels, compiled once per install.
     Imports the kernel module (numba) but compiles nothing.
     """
     from kernels import blocks

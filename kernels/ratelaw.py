@@ -269,7 +269,7 @@ def is_cached(module: ModuleType, law: RateLaw, real: bool) -> bool:
     """Whether ``specialised(module, law, real)`` would load compiled code from numba's disk cache.
 
     True when the generated file exists and numba holds an index for its ``run``; a new model (or
-    new kernel sources) gives False, and the first call then compiles (see NOTES-kernels.md for the
+    new kernel sources) gives False, and the first call then compiles (see docs/notes/kernels.md for the
     cost). Imports nothing that compiles.
     """
     text = specialised_source(module, law, real)
