@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.stats
-from conformance import KernelConformance, build, mixed_network, seeds
+from support.kernel_conformance import KernelConformance, build, mixed_network, seeds
 
 from kernels import cle
 

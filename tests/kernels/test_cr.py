@@ -15,8 +15,8 @@ import pytest
 import scipy.linalg
 import scipy.special
 import scipy.stats
-from conformance import Case, KernelConformance, build, immigration_death, mixed_network, seeds
-from reference import fsp, marginal, mass_action, pooled_chisquare
+from support.kernel_conformance import Case, KernelConformance, build, immigration_death, mixed_network, seeds
+from support.exact import fsp, marginal, mass_action, pooled_chisquare
 
 import kernels.cr
 from sweep.model import compile_network, initial_counts, parse_model, rate_constants

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 import scipy.special
 import scipy.stats
-from conformance import KernelConformance, build, immigration_death, mixed_network, seeds
-from reference import fsp, marginal, mass_action, pooled_chisquare
+from support.kernel_conformance import KernelConformance, build, immigration_death, mixed_network, seeds
+from support.exact import fsp, marginal, mass_action, pooled_chisquare
 
 ALPHA = 0.001  # significance level of every goodness-of-fit check below
 POWER_P = 1e-6  # a deliberately wrong reference must be rejected at least this strongly

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import scipy.special
 import scipy.stats
-from conformance import KernelConformance, build, mixed_network, seeds
-from reference import fsp, marginal, mass_action, pooled_chisquare
+from support.kernel_conformance import KernelConformance, build, mixed_network, seeds
+from support.exact import fsp, marginal, mass_action, pooled_chisquare
 
 import kernels.nrm
 

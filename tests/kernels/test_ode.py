@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conformance import KernelConformance, build, immigration_death, mixed_network, seeds
+from support.kernel_conformance import KernelConformance, build, immigration_death, mixed_network, seeds
 from scipy.integrate import solve_ivp
 
 import kernels

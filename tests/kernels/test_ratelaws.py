@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conformance import seeds
-from reference import fsp, marginal, pooled_chisquare
+from support.kernel_conformance import seeds
+from support.exact import fsp, marginal, pooled_chisquare
 
 import kernels
 from sweep.model import AVOGADRO, compile_network, initial_counts, parse_model, rate_constants

@@ -20,7 +20,7 @@ import sys
 
 import numpy as np
 import pytest
-from conformance import build, infinite_propensity, mixed_network
+from support.kernel_conformance import build, infinite_propensity, mixed_network
 
 import kernels
 from kernels.rng import Streams

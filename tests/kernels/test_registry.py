@@ -10,7 +10,7 @@ import sys
 
 import numpy as np
 import pytest
-from conformance import immigration_death, mixed_network, seeds
+from support.kernel_conformance import immigration_death, mixed_network, seeds
 
 import kernels
 from kernels import blocks

@@ -37,8 +37,8 @@ import numpy as np
 import pytest
 import scipy.linalg
 import scipy.stats
-from conformance import KernelConformance, build, mixed_network, seeds
-from reference import pooled_chisquare
+from support.kernel_conformance import KernelConformance, build, mixed_network, seeds
+from support.exact import pooled_chisquare
 
 import kernels
 import kernels.tau_leap as tau_leap

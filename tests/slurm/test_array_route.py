@@ -29,7 +29,8 @@ from sweep.batch import walltime
 from sweep.execute.run import task_inputs
 from sweep.execute.tasks import make_tasks
 from sweep.execute.worker import run_task, warm_up
-from shared_models import DIMERISING
+from support.models import DIMERISING
+from support.stores import arrays
 
 pytestmark = pytest.mark.slurm
 
@@ -51,13 +52,8 @@ DATA = ("counts", "status", "events")
 LIVE = "PENDING,RUNNING,CONFIGURING,COMPLETING,SUSPENDED,REQUEUED"
 
 
-def _arrays(path: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in DATA}
-
-
 def _assert_identical(path: Path, expected: dict[str, np.ndarray]) -> None:
-    got = _arrays(path)
+    got = arrays(path, DATA)
     for name in DATA:
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
     assert store.read_done(path).all()
@@ -72,7 +68,7 @@ def small(tmp_path_factory, spec_writer):
     path = spec_writer(folder, SMALL, model=DIMER)
     spec = sweep.load(path, store=folder / "ref.zarr")
     assert sweep.run(spec, workers=2).complete
-    return path, _arrays(spec.store)
+    return path, arrays(spec.store, DATA)
 
 
 def _submit(spec_path: Path, target: Path, out: Path, *args: str) -> tuple[str, str]:
@@ -205,7 +201,7 @@ def test_work_of_several_walltimes_completes_through_resubmission(tmp_path, spec
     stopped = [log for log in (out / "logs").glob("sweep-wallD-*_*.out")
                if "stopped before the time limit" in log.read_text()]
     assert stopped
-    _assert_identical(target, _arrays(reference.store))
+    _assert_identical(target, arrays(reference.store, DATA))
 
 
 def _long_body(points: int) -> str:

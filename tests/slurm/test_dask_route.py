@@ -24,7 +24,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 import zarr
-from shared_models import DIMERISING
+from support.models import DIMERISING
+from support.stores import arrays, assert_identical
 
 pytestmark = pytest.mark.slurm
 
@@ -70,18 +71,6 @@ def _sweep(*args: str, timeout: float = 600) -> tuple[subprocess.CompletedProces
     result = subprocess.run([sys.executable, "-m", "sweep.cli", "run", *args], capture_output=True, text=True,
                             timeout=timeout, env=ENV)
     return result, time.monotonic() - began
-
-
-def _arrays(path: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in DATA}
-
-
-def _assert_identical(path: Path, expected: dict[str, np.ndarray]) -> None:
-    got = _arrays(path)
-    for name in DATA:
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-    assert zarr.open_group(path, mode="r")["done"][:].all()
 
 
 def _queued(job_name: str) -> list[str]:
@@ -130,7 +119,7 @@ def small_reference(tmp_path_factory, spec_writer):
     result, seconds = _sweep(str(spec), "--store", str(folder / "local.zarr"), "--workers", "2")
     assert result.returncode == 0, result.stdout + result.stderr
     print(f"\nMEASURE small sweep, local --workers 2: {seconds:.1f} s")
-    return spec, _arrays(folder / "local.zarr")
+    return spec, arrays(folder / "local.zarr", DATA)
 
 
 def test_small_sweep_through_two_slurm_workers_matches_a_local_run(small_reference, tmp_path, spec_writer):
@@ -144,7 +133,7 @@ def test_small_sweep_through_two_slurm_workers_matches_a_local_run(small_referen
     assert result.returncode == 0, out
     assert "scheduler and workers talk over TLS with a temporary certificate" in out
     assert "Dask scheduler: tls://" in out
-    _assert_identical(store, expected)
+    assert_identical(store, expected, DATA)
     log_dir = tmp_path / "slurm.zarr.logs"
     workers = _worker_jobs(log_dir, name)
     assert len(workers) == 2, sorted(log_dir.iterdir())  # two distinct Slurm jobs ran a worker each
@@ -163,7 +152,7 @@ def test_ctrl_c_cancels_the_jobs_and_a_resume_outlives_several_walltimes(tmp_pat
     reference = spec_writer(tmp_path, LONG, model=DIMER, name="local.toml")
     result, local_seconds = _sweep(str(reference), "--store", str(tmp_path / "local.zarr"), "--workers", "2")
     assert result.returncode == 0, result.stdout + result.stderr
-    expected = _arrays(tmp_path / "local.zarr")
+    expected = arrays(tmp_path / "local.zarr", DATA)
     print(f"\nMEASURE long sweep, local --workers 2: {local_seconds:.1f} s")
 
     name = f"swdask-long-{os.getpid()}"
@@ -190,7 +179,7 @@ def test_ctrl_c_cancels_the_jobs_and_a_resume_outlives_several_walltimes(tmp_pat
     out = result.stdout + result.stderr
     assert result.returncode == 0, out
     assert f"resuming: {LONG_TASKS - interrupted_at} of {LONG_TASKS} tasks left" in out
-    _assert_identical(store, expected)
+    assert_identical(store, expected, DATA)
     assert not _gone(name)
 
     logs = {job: log for job, log in _worker_jobs(tmp_path / "slurm.zarr.logs", name).items() if job not in before}

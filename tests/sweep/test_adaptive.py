@@ -27,6 +27,7 @@ import sweep
 from sweep.execute import adaptive
 from sweep.cli import app
 from sweep.errors import SpecError
+from support.stores import arrays
 
 Z_999 = 3.29  # two-sided normal quantile for alpha = 0.001
 runner = CliRunner()
@@ -217,11 +218,6 @@ FIRST_ROUND = 3 * 2  # three points, two blocks of 50 each
 DATA = ("counts", "status", "events", "done")
 
 
-def _arrays(store: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(store, mode="r")
-    return {name: g[name][:] for name in DATA}
-
-
 def _done_count(store: Path) -> int:
     try:
         return int(zarr.open_group(store, mode="r")["done"][:].sum())
@@ -241,7 +237,7 @@ def test_sigkill_mid_round_then_resume_is_bit_identical(spec_file, tmp_path):
     path = spec_file(BODY, model=BUSY_MODEL)
     reference = sweep.run(sweep.load(path, store=tmp_path / "ref.zarr"), workers=2)
     assert reference.complete
-    expected = _arrays(tmp_path / "ref.zarr")
+    expected = arrays(tmp_path / "ref.zarr", DATA)
     total = int(expected["done"].sum())
     assert total > FIRST_ROUND + 6  # there are later rounds to interrupt
 
@@ -258,7 +254,7 @@ def test_sigkill_mid_round_then_resume_is_bit_identical(spec_file, tmp_path):
                             env={**os.environ, "COLUMNS": "200"})
     assert result.returncode == 0, result.stdout + result.stderr
     assert "resuming:" in result.stdout
-    got = _arrays(store)
+    got = arrays(store, DATA)
     for name in DATA:
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
     assert sweep.status(store).adaptive == sweep.status(tmp_path / "ref.zarr").adaptive

@@ -15,7 +15,7 @@ from sweep.fit import distances, smc
 from sweep.fit.loop import Settings, fit
 from sweep.fit.priors import Prior
 from sweep.fit.summary import weighted_quantile
-from fit_support import MemoryRecords, PoissonEvaluator, observed_data
+from support.fit import MemoryRecords, PoissonEvaluator, observed_data
 
 T_STATIONARY = 8.0  # 8 relaxation times of g = 1: the data are Poisson((k/g)(1 - e^-8))
 

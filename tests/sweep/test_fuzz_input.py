@@ -19,7 +19,7 @@ from pathlib import Path
 
 import pytest
 
-from hostile_cases import MODEL, SPEC, check, no_traceback, sbml
+from support.hostile_cases import MODEL, SPEC, check, no_traceback, sbml
 
 SEED = 20261202
 CASES_PER_KIND = 25

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import zarr
 
-from hang_bound import time_bound
-from hostile_cases import MODEL, RUN, SBML_SPEC, SPEC, check, no_traceback, runner, sbml, write, write_sbml
+from support.hang_bound import time_bound
+from support.hostile_cases import MODEL, RUN, SBML_SPEC, SPEC, check, no_traceback, runner, sbml, write, write_sbml
 from sweep.spec import limits
 from sweep.cli import app
 from sweep.model import compile_network, initial_counts, parse_model
@@ -231,7 +231,7 @@ def test_9_replicates_per_task(tmp_path):
             "256 MiB", "at most 33,554")
 
 
-# ---- 10. infinite propensities at run time (every kernel: tests/kernels/conformance.py) --------
+# ---- 10. infinite propensities at run time (every kernel: tests/support/kernel_conformance.py) --------
 
 INFINITE = 'model = "model.toml"\n' + RUN.replace("replicates = 4", "replicates = 6").replace(
     "replicates_per_task = 2", "replicates_per_task = 6")

@@ -30,7 +30,8 @@ import zarr
 from distributed import LocalCluster
 
 import sweep
-from shared_models import DIMERISING
+from support.models import DIMERISING
+from support.stores import arrays
 
 # 16 tasks of about a tenth of a second: a second on 2 workers
 BODY = """
@@ -58,12 +59,7 @@ def reference(tmp_path_factory, spec_writer):
     spec = sweep.load(path, store=folder / "ref.zarr")
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster:
         assert sweep.run(spec, scheduler=cluster.scheduler_address).complete
-    return path, _arrays(spec.store)
-
-
-def _arrays(store: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(store, mode="r")
-    return {name: g[name][:] for name in DATA}
+    return path, arrays(spec.store, DATA)
 
 
 def _done(store: Path) -> int:
@@ -193,7 +189,7 @@ def _rerun(spec: Path, store: Path, expected: dict[str, np.ndarray]) -> subproce
                              "--workers", "2"], capture_output=True, text=True, timeout=300,
                             env={**os.environ, "COLUMNS": "200"})
     assert result.returncode == 0, result.stdout + result.stderr
-    got = _arrays(store)
+    got = arrays(store, DATA)
     for name in DATA:
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
     assert zarr.open_group(store, mode="r")["done"][:].all()

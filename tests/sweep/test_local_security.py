@@ -27,7 +27,7 @@ from typer.testing import CliRunner
 
 from sweep.cli import app
 from sweep.execute import local
-from shared_models import DIMERISING
+from support.models import DIMERISING
 
 # 16 tasks of a few hundredths of a second: the cluster's start dominates
 BODY = """

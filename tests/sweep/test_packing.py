@@ -17,6 +17,7 @@ from distributed import LocalCluster
 import sweep
 from sweep.execute.execution import Execution
 from sweep.execute.tasks import Packer
+from support.stores import arrays
 
 BODY = """
 [run]
@@ -53,18 +54,13 @@ def scheduler():
         yield cluster.scheduler_address
 
 
-def _arrays(path):
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in DATA}
-
-
 @pytest.fixture(scope="module")
 def one_block_per_task(tmp_path_factory, spec_writer, scheduler):
     folder = tmp_path_factory.mktemp("packing")
     path = spec_writer(folder, BODY, model=MODEL)
     spec = sweep.load(path, store=folder / "one.zarr")
     assert sweep.run(spec, Execution("scheduler", address=scheduler, pack=1)).complete
-    return path, _arrays(spec.store)
+    return path, arrays(spec.store, DATA)
 
 
 @pytest.mark.parametrize("pack", [2, 7, 60, None])
@@ -75,7 +71,7 @@ def test_any_packing_writes_the_same_bytes(pack, one_block_per_task, tmp_path, s
     execution = Execution("scheduler", address=scheduler, pack=pack, pack_seconds=0.05)
     summary = sweep.run(spec, execution)
     assert summary.complete and summary.tasks_run == 60
-    got = _arrays(spec.store)
+    got = arrays(spec.store, DATA)
     for name in DATA:
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
 
@@ -86,7 +82,7 @@ def test_shards_pack_too_and_write_the_same_bytes(one_block_per_task, tmp_path):
     for index in (1, 2, 3):
         summary = sweep.run(spec, Execution("shard", shard=(index, 3), pack=4))
         assert summary.complete and summary.tasks_in_scope == 20
-    got = _arrays(spec.store)
+    got = arrays(spec.store, DATA)
     for name in ("counts", "status", "events", "done", "checksums"):
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
 

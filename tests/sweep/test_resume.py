@@ -27,7 +27,8 @@ from typer.testing import CliRunner
 import sweep
 from sweep.cli import app
 from sweep.store.lock import LOCK_NAME
-from shared_models import DIMERISING
+from support.models import DIMERISING
+from support.stores import arrays, assert_identical
 
 # 48 tasks of a few tenths of a second each: several seconds on 2 workers
 MODEL = DIMERISING
@@ -59,7 +60,7 @@ def reference(tmp_path_factory, spec_writer):
     spec = sweep.load(path, store=folder / "ref.zarr")
     summary = sweep.run(spec, workers=2)
     assert summary.complete
-    return path, _arrays(spec.store)
+    return path, arrays(spec.store, DATA)
 
 
 @pytest.fixture(scope="module")
@@ -69,19 +70,7 @@ def slow_reference(tmp_path_factory, spec_writer):
     path = spec_writer(folder, SLOW_BODY, model=MODEL)
     spec = sweep.load(path, store=folder / "ref.zarr")
     assert sweep.run(spec, workers=2).complete
-    return path, _arrays(spec.store)
-
-
-def _arrays(store: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(store, mode="r")
-    return {name: g[name][:] for name in DATA}
-
-
-def _assert_identical(store: Path, expected: dict[str, np.ndarray]) -> None:
-    got = _arrays(store)
-    for name in DATA:
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-    assert zarr.open_group(store, mode="r")["done"][:].all()
+    return path, arrays(spec.store, DATA)
 
 
 def _done_count(store: Path) -> int:
@@ -119,7 +108,7 @@ def test_sigkill_of_the_whole_run_then_resume(slow_reference, tmp_path):
     result = _rerun(spec_path, store)
     assert result.returncode == 0, result.stdout + result.stderr
     assert f"resuming: {48 - done_before} of 48 tasks left" in result.stdout
-    _assert_identical(store, expected)
+    assert_identical(store, expected, DATA)
     assert not (store / LOCK_NAME).exists() and not list(store.rglob("*.partial"))
 
 
@@ -142,7 +131,7 @@ def test_ctrl_c_stops_cleanly_and_prints_the_resume_command(slow_reference, tmp_
     result = subprocess.run([sys.executable, "-m", "sweep.cli", *command[1:]], capture_output=True, text=True,
                             timeout=300)
     assert result.returncode == 0, result.stdout + result.stderr
-    _assert_identical(store, expected)
+    assert_identical(store, expected, DATA)
 
 
 def test_a_worker_killed_mid_sweep_is_survived(reference, tmp_path):
@@ -161,7 +150,7 @@ def test_a_worker_killed_mid_sweep_is_survived(reference, tmp_path):
         summary = sweep.run(spec, scheduler=cluster.scheduler_address, on_progress=kill_one)
     assert killed and summary.complete, summary
     assert not psutil.pid_exists(killed[0]) or psutil.Process(killed[0]).status() == psutil.STATUS_ZOMBIE
-    _assert_identical(spec.store, expected)
+    assert_identical(spec.store, expected, DATA)
 
 
 def _worker_pids(address: str) -> list[int]:
@@ -214,7 +203,7 @@ def test_stale_lock_on_this_host_is_taken_over(reference, tmp_path):
     _write_lock(store, socket.gethostname(), gone.pid, time.time() - 5)
     spec = sweep.load(spec_path, store=store)
     assert sweep.run(spec, workers=2).complete
-    _assert_identical(store, expected)
+    assert_identical(store, expected, DATA)
 
 
 def test_lock_from_another_host_needs_break_lock(reference, tmp_path):
@@ -239,5 +228,5 @@ def test_verify_finds_a_deleted_chunk_and_a_rerun_restores_it(reference, tmp_pat
     assert not zarr.open_group(spec.store, mode="r")["done"][2, 5]
     result = runner.invoke(app, ["run", str(spec_path), "--store", str(spec.store), "--workers", "1"])
     assert result.exit_code == 0 and "resuming: 1 of 48 tasks left" in result.output, result.output
-    _assert_identical(spec.store, expected)
+    assert_identical(spec.store, expected, DATA)
     assert runner.invoke(app, ["status", str(spec.store), "--verify"]).exit_code == 0

@@ -31,7 +31,8 @@ from sweep.batch import jobs, walltime
 from sweep.execute.execution import parse_shard
 from sweep.cli import app
 from sweep.store.lock import LOCK_NAME
-from shared_models import DIMERISING
+from support.models import DIMERISING
+from support.stores import arrays
 
 # 48 tasks of a few tenths of a second each (the model of test_resume.py)
 MODEL = DIMERISING
@@ -59,16 +60,11 @@ def reference(tmp_path_factory, spec_writer):
     path = spec_writer(folder, BODY, model=MODEL)
     spec = sweep.load(path, store=folder / "ref.zarr")
     assert sweep.run(spec, workers=2).complete
-    return path, _arrays(spec.store)
-
-
-def _arrays(path: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in DATA}
+    return path, arrays(spec.store, DATA)
 
 
 def _assert_identical_and_tidy(path: Path, expected: dict[str, np.ndarray]) -> None:
-    got = _arrays(path)
+    got = arrays(path, DATA)
     for name in DATA:
         np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
     assert zarr.open_group(path, mode="r")["done"][:].all()  # folded into `done` itself

@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 import kernels
-from hang_bound import time_bound
+from support.hang_bound import time_bound
 from kernels.network import KernelResult, Network
 from sweep.model import compile_network, initial_counts, parse_model, rate_constants
 

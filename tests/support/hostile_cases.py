@@ -13,7 +13,7 @@ from pathlib import Path
 import libsbml
 from typer.testing import CliRunner
 
-from hang_bound import time_bound
+from support.hang_bound import time_bound
 from sweep.cli import app
 
 runner = CliRunner()
