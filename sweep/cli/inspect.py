@@ -10,7 +10,6 @@ from rich.table import Table
 
 import sweep
 from sweep.cli.common import EXIT_FAILED_TASKS, console, errors, exits_on_errors, lost_lines, shown, store_path
-from sweep.store.status import verify as verify_store
 
 
 def _adaptive_rows(table: Table, st: sweep.StoreStatus) -> None:
@@ -95,6 +94,8 @@ def _warnings(st: sweep.StoreStatus) -> None:
 
 def _verify(store: Path) -> None:
     """Print what ``--verify`` found and repaired; exit 1 when anything was wrong."""
+    from sweep.store.status import verify as verify_store  # zarr: only when a store is read
+
     found = verify_store(store)
     for name, problem in found.coordinates.items():
         errors.print(f"[red]damaged[/] coordinate {shown(name)}: {shown(problem)}")

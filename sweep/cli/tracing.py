@@ -12,7 +12,6 @@ from rich.table import Table
 from sweep.cli.common import (EXIT_FAILED_TASKS, POINT_FORMS, console, errors, exits_on_errors, expand_points,
                               parse_points, shown, store_path)
 from sweep.errors import SpecError
-from sweep.execute.trace import trace as trace_replicate
 
 _STATUS = {0: "finished", 1: "stopped at the event cap", 2: "numerical failure"}
 
@@ -34,6 +33,8 @@ def trace(
     if len(chosen) != 1:
         raise SpecError("sweep trace", "--point", f"names {len(chosen)} points; a trace recomputes one replicate "
                         "of one point", point, "give one point, e.g. --point 3")
+    from sweep.execute.trace import trace as trace_replicate  # zarr: only when a store is read
+
     tr = trace_replicate(store, chosen[0], replicate)
     params = ", ".join(f"{k}={v:g}" for k, v in tr.params.items()) or "(no varied parameters)"
     console.print(f"point {tr.point} ({shown(params)}), replicate {tr.replicate}: {tr.events:,} events, "

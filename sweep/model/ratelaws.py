@@ -20,9 +20,10 @@ the parameters after the R constants).
 
 from __future__ import annotations
 
-from typing import Mapping
+from typing import TYPE_CHECKING, Mapping
 
-from kernels.ratelaw import RateLaw
+if TYPE_CHECKING:
+    from kernels.ratelaw import RateLaw
 
 _OPERATORS = ("+", "-", "*", "/", "**")
 _CALLS = {"exp": "math.exp", "log": "math.log", "sqrt": "math.sqrt", "floor": "math.floor", "ceil": "math.ceil",
@@ -79,6 +80,8 @@ def source(laws: Mapping[int, tuple], species: Mapping[str, int], params: Mappin
 def compile_laws(laws: Mapping[int, tuple], species: Mapping[str, int], params: Mapping[str, int],
                  n_reactions: int, omega: float | None = None) -> RateLaw:
     """A ``RateLaw`` (compiled lazily where it runs) for the given laws; see ``source``."""
+    from kernels.ratelaw import RateLaw  # numba: only once a model with laws is compiled
+
     return RateLaw(source(laws, species, params, n_reactions, omega),
                    inline_source(laws, species, params, n_reactions, omega))
 
