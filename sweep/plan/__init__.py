@@ -14,6 +14,7 @@ _NAMES = {
     "Plan": "sweep.plan.estimate",
     "Size": "sweep.plan.estimate",
     "limits": "sweep.plan.estimate",
+    "method_advice": "sweep.plan.estimate",
     "plan": "sweep.plan.estimate",
     "size": "sweep.plan.estimate",
     "write_trial": "sweep.plan.estimate",
@@ -22,5 +23,6 @@ __all__ = sorted(_NAMES)
 __getattr__, __dir__ = lazy.exports(__name__, _NAMES)
 
 if TYPE_CHECKING:  # what type checkers and IDEs see
-    from sweep.plan.estimate import (CALIBRATION_KEY, MAX_BYTES, MAX_TASKS, STARTUP_SECONDS, Plan, Size, limits, plan,
+    from sweep.plan.estimate import (CALIBRATION_KEY, MAX_BYTES, MAX_TASKS, STARTUP_SECONDS, Plan, Size, limits,
+                                     method_advice, plan,
                                      size, write_trial)
