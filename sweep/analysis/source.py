@@ -18,6 +18,7 @@ import xarray as xr
 from sweep import store
 
 from sweep.store import claims, lock
+from sweep.store.observed import IS_OBSERVABLE
 from sweep.errors import SpecError, StoreError
 
 GROUP = "analysis"
@@ -26,14 +27,15 @@ CHUNK_BYTES = 8 * 2**20
 
 
 def open_store(path: Path) -> xr.Dataset:
-    """The store's root Dataset, opened lazily (dask-backed).
+    """The store's root Dataset, opened lazily (dask-backed), with the model's observables as more
+    species (``sweep.store.with_observables``): where every analysis resolves a species name.
 
     Raises
     ------
     StoreError
         No results store at ``path``.
     """
-    return store.open_dataset(path)
+    return store.with_observables(store.open_dataset(path))
 
 
 def valid_counts(ds: xr.DataArray | xr.Dataset, species: str | list[str] | None = None) -> xr.DataArray:
@@ -49,7 +51,10 @@ def valid_counts(ds: xr.DataArray | xr.Dataset, species: str | list[str] | None 
     chunks = _chunks(counts.sizes)
     counts = counts.chunk({d: chunks[d] for d in counts.dims})
     finished = (ds["status"] == 0).chunk({"point": chunks["point"], "replicate": -1})
-    return counts.where(finished & (counts >= 0))
+    known = counts >= 0  # -1 marks an unknown count; an observable is NaN there already and may be negative
+    if IS_OBSERVABLE in counts.coords:
+        known = known | (counts[IS_OBSERVABLE] & counts.notnull())
+    return counts.where(finished & known)
 
 
 def _chunks(sizes) -> dict[str, int]:
@@ -104,7 +109,7 @@ def sample_times(ds: xr.Dataset, wanted, source: str = "sweep analyze", field: s
 
 
 def check_species(ds: xr.Dataset, names, source: str = "sweep analyze", field: str = "--species") -> None:
-    """Raise SpecError naming the store's species if any of ``names`` is not one of them."""
+    """Raise SpecError naming the store's species (and observables) if any of ``names`` is not one of them."""
     known = [str(s) for s in ds["species"].values]
     for name in names:
         if name not in known:

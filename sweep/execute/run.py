@@ -25,6 +25,7 @@ from sweep.execute import BACKENDS
 from sweep.execute.execution import Execution
 from sweep.execute.loop import FailedTask, Progress, Tally, Terminated, drive
 from sweep.model import compile_network, initial_counts, rate_constants
+from sweep.model.observables import Readout
 from sweep.execute.tasks import Packer, Task, chunk_bytes, n_blocks
 from sweep.batch.walltime import Budget
 from sweep.execute.worker import BlockInput, TaskInput, warm_up
@@ -236,19 +237,22 @@ def input_builder(spec: Spec, points: np.ndarray) -> Callable[[list[Task]], Task
     times = np.asarray(spec.times)
     path = str(spec.store.resolve())
     ident = store.store_id(store.attributes(spec.store))
-    cache: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    readout = Readout.of(spec.model)
+    cache: dict[int, tuple] = {}
 
-    def point_inputs(p: int) -> tuple[np.ndarray, np.ndarray]:
+    def point_inputs(p: int) -> tuple:
         if p not in cache:
             if len(cache) > 4096:
                 cache.clear()
             values = spec.values_at(points[p])
-            cache[p] = (rate_constants(spec.model, values), initial_counts(spec.model, values))
+            cache[p] = (rate_constants(spec.model, values), initial_counts(spec.model, values),
+                        readout.values_of(values) if readout is not None else ())
         return cache[p]
 
     def make(tasks: list[Task]) -> TaskInput:
         blocks = tuple(BlockInput(t.point, t.block, t.start, t.stop, *point_inputs(t.point)) for t in tasks)
-        return TaskInput(path, spec.method, network, times, spec.seed, spec.max_events, blocks, spec.options, ident)
+        return TaskInput(path, spec.method, network, times, spec.seed, spec.max_events, blocks, spec.options, ident,
+                         readout)
 
     return make
 

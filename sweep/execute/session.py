@@ -94,7 +94,7 @@ class DoneRecord:
         self.done = store.read_done(path)
         sums = store.read_checksums(path)
         # a store from before checksums were recorded: record them from now on
-        self.sums = sums if sums is not None else np.zeros((points, blocks, len(store.DATA_ARRAYS)), np.uint32)
+        self.sums = sums if sums is not None else np.zeros((points, blocks, len(store.data_arrays(path))), np.uint32)
         self._dirty, self._flushed = False, time.perf_counter()
 
     def mark(self, point: int, block: int, checksums: tuple[int, ...]) -> None:

@@ -10,13 +10,14 @@ to the client; the trajectories never do.
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 import kernels
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
+from sweep.model.observables import Readout
 from sweep.store.chunks import group_commit
 from sweep import store
 
@@ -31,6 +32,7 @@ class BlockInput:
     stop: int
     rates: np.ndarray
     x0: np.ndarray
+    readout_values: tuple[float, ...] = ()  # the point's values of the parameters the observables read
 
 
 @dataclass(frozen=True)
@@ -46,11 +48,11 @@ class TaskInput:
     blocks: tuple[BlockInput, ...]
     options: tuple[tuple[str, object], ...] = ()  # method keyword options from [run.options]
     store_id: str = ""  # the store's attrs["store_id"]: the worker keeps its handles open while it matches
+    readout: Readout | None = None  # the model's observables, computed from each block's counts
 
     def split(self) -> list[TaskInput]:
         """One task per block (a packed task that failed is retried block by block)."""
-        return [TaskInput(self.store, self.method, self.network, self.times, self.root_seed, self.max_events,
-                          (b,), self.options, self.store_id) for b in self.blocks]
+        return [replace(self, blocks=(b,)) for b in self.blocks]
 
 
 @dataclass(frozen=True)
@@ -89,7 +91,9 @@ def _run_blocks(task: TaskInput, kernel, options: dict, done: list) -> float:
         result = kernel.simulate(task.network, b.rates, b.x0, task.times, Streams(task.root_seed, b.point, b.start,
                                                                                   b.stop), task.max_events, **options)
         in_kernel += time.perf_counter() - started
-        sums = store.write_block(task.store, b.point, b.start, b.stop, result, task.store_id)
+        observed = None if task.readout is None else task.readout.evaluate(result.counts, result.status,
+                                                                            b.readout_values)
+        sums = store.write_block(task.store, b.point, b.start, b.stop, result, task.store_id, observed)
         done.append(BlockResult(b.point, b.block, int(result.events.sum()),
                                 int(np.count_nonzero(result.status == STATUS_EVENT_CAP)),
                                 int(np.count_nonzero(result.status == STATUS_NUMERICAL)), sums))

@@ -32,6 +32,7 @@ import numpy as np
 
 from kernels.network import Network
 from sweep.model import expr, ratelaws
+from sweep.model import observables as observed
 from sweep.spec import limits
 from sweep.errors import SpecError
 
@@ -77,6 +78,8 @@ class Model:
     reactions: tuple[Reaction, ...]
     constants: str = "molecules"
     volume: float | None = None
+    # [observables]: (name, expression) read from the counts on the sample grid (sweep.model.observables)
+    observables: tuple[tuple[str, expr.Expr], ...] = ()
 
     @property
     def omega(self) -> float | None:
@@ -152,7 +155,7 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     SpecError
         Naming the file, the field and the fix.
     """
-    _check_keys(table, {"species", "parameters", "reactions", "units"}, source, prefix.rstrip("."))
+    _check_keys(table, {"species", "parameters", "reactions", "units", "observables"}, source, prefix.rstrip("."))
     species_t = _table(table, "species", source, prefix, required=True)
     params_t = _table(table, "parameters", source, prefix, required=False)
     reactions_t = _table(table, "reactions", source, prefix, required=True)
@@ -186,7 +189,9 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
         raise SpecError(source, f"{prefix}reactions", "the model has no reactions",
                         fix="add at least one, e.g. decay = { reaction = \"A -> 0\", rate = 0.1 }")
     _check_parameter_uses(dict(parameters), reactions, initial, source, prefix)
-    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume)
+    readouts = observed.parse(table.get("observables"), tuple(species), param_names, {r.name for r in reactions},
+                              source, f"{prefix}observables")
+    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume, readouts)
     _check_dependencies(model, source, prefix)
     return model
 

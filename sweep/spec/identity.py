@@ -62,6 +62,8 @@ def of(spec: Spec, points: np.ndarray) -> dict[str, Any]:
         "param": list(spec.param_names),
         "points": {"count": int(points.shape[0]), "sha256": _sha(points)},
         "values": _values(spec, points),
+        # only when there are some, so a store without observables keeps the fingerprint it always had
+        **({"observables": _observables(model)} if model.observables else {}),
     }
 
 
@@ -89,6 +91,7 @@ def differences(old: dict[str, Any], new: dict[str, Any]) -> list[str]:
     if old.get("species") == new.get("species") and old.get("initial") != new.get("initial"):
         out.append(f"initial counts: {_show(old.get('initial'))} -> {_show(new.get('initial'))}")
     out += _reactions(old.get("reactions", []), new.get("reactions", []))
+    out += _observables_moved(old.get("observables", []), new.get("observables", []))
     out += _order_or_content("varied parameters ([design.vary])", old.get("param", []), new.get("param", []),
                              "their order decides the param coordinate and the order of the points")
     if old.get("points") != new.get("points"):
@@ -155,6 +158,7 @@ def _values(spec: Spec, points: np.ndarray) -> dict[str, Any]:
     used = {r.rate for r in model.reactions if isinstance(r.rate, str)}
     used |= {v for v in model.initial if isinstance(v, str)}
     used |= set(model.law_parameters)
+    used |= {n for _, e in model.observables for n in e.names if n not in model.species}
     columns = spec.columns(points)
     out: dict[str, Any] = {}
     for name in sorted(used):
@@ -165,6 +169,24 @@ def _values(spec: Spec, points: np.ndarray) -> dict[str, Any]:
         else:
             out[name] = {"sha256": _sha(column)}
     return out
+
+
+def _observables(model) -> list[list[str]]:
+    """Each observable as its name and checked tree, in order (they are the columns of ``observables``)."""
+    return [[name, repr(e.tree)] for name, e in model.observables]
+
+
+def _observables_moved(old: list, new: list) -> list[str]:
+    """Observables added, removed, reordered or edited: each changes the stored ``observables``."""
+    if old == new:
+        return []
+    a, b = dict(map(tuple, old)), dict(map(tuple, new))
+    if a == b:
+        return [f"observable order: {_list(list(a))} -> {_list(list(b))} (the order of [observables] decides "
+                "the columns of observables)"]
+    lines = [f"observable {name}: " + ("added" if name not in a else "removed" if name not in b else "edited")
+             for name in list(a) + [n for n in b if n not in a] if a.get(name) != b.get(name)]
+    return lines[:_SHOWN]
 
 
 def _sha(array: np.ndarray) -> str:

@@ -103,7 +103,8 @@ class Spec:
     cluster: tuple[tuple[str, Any], ...] = ()
     # [plot] species: the species figures show when none is named; presentation only, like [cluster]
     plot_species: str | None = None
-    observables: tuple[tuple[str, str], ...] = ()  # SBML assignment rules that read species (name, expression)
+    # the model's observables (name, expression text): [observables], or SBML assignment rules that read species
+    observables: tuple[tuple[str, str], ...] = ()
     time_unit: str = ""                              # [time] unit, else the SBML model's timeUnits
 
     @property
@@ -261,7 +262,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     time_unit = model_files.time_unit(_sub(doc, "time", src), imported, src)
     adaptive = None
     if "adaptive" in run:
-        adaptive = adaptives.parse(run["adaptive"], replicates, model.species, times,
+        adaptive = adaptives.parse(run["adaptive"], replicates, model.species + _observed(model), times,
                                    method in kernels.DETERMINISTIC, src)
     overrides = _sub(doc, "parameters", src)
     fixed = _fixed(overrides, model, src)
@@ -282,7 +283,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     spec = Spec(path, text, model_text, digest, model, method, replicates, per_task, seed, store_path,
                 max_events, times, fixed, design, derived, options, adaptive,
                 model_notes=imported.notes if imported is not None else (),
-                observables=imported.observables if imported is not None else (), time_unit=time_unit,
+                observables=tuple((n, e.text) for n, e in model.observables), time_unit=time_unit,
                 cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()),
                 plot_species=_plot_species(_sub(doc, "plot", src), model, src))
     check_points(spec, src, _model_source(doc, path))
@@ -348,8 +349,9 @@ def _plot_species(table, model: Model, src) -> str | None:
     if "species" not in table:
         return None
     name = table["species"]
-    if not isinstance(name, str) or name not in model.species:
-        raise SpecError(src, "plot.species", "not a species of the model", name, fix=f"one of {listing(model.species)}")
+    if not isinstance(name, str) or name not in model.species + _observed(model):
+        raise SpecError(src, "plot.species", "not a species or observable of the model", name,
+                        fix=f"one of {listing(model.species + _observed(model))}")
     return name
 
 
@@ -483,3 +485,8 @@ def _model_source(doc: Mapping[str, Any], path: Path) -> tuple[str, str]:
 def _itemsize(method: str) -> int:
     """Bytes per count in ``method``'s store (``COUNTS_DTYPE`` of its kernel module, int32 by default)."""
     return np.dtype(getattr(kernels.get(method), "COUNTS_DTYPE", np.int32)).itemsize
+
+
+def _observed(model: Model) -> tuple[str, ...]:
+    """Observable names: usable wherever a species name is (adaptive targets, [plot] species)."""
+    return tuple(name for name, _ in model.observables)

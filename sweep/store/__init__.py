@@ -19,6 +19,9 @@ _NAMES = {
     "DATA_ARRAYS": "sweep.store.layout",
     "FORMAT_VERSION": "sweep.store.layout",
     "INCOMPLETE": "sweep.store.layout",
+    "OBSERVABLES": "sweep.store.layout",
+    "data_arrays": "sweep.store.layout",
+    "with_observables": "sweep.store.observed",
     "DamagedDone": "sweep.store.layout",
     "attributes": "sweep.store.layout",
     "brief": "sweep.store.layout",
@@ -55,6 +58,8 @@ if TYPE_CHECKING:  # what type checkers and IDEs see
     from sweep.store.layout import (BUILDING, CHECKSUMS, COORDINATES, DATA_ARRAYS, FORMAT_VERSION, INCOMPLETE,
                                     DamagedDone, attributes, brief, check_claimable, consolidate, counts_dtype, create, exists,
                                     incomplete, is_ours, open_dataset, store_id, versions, write_coordinates)
+    from sweep.store.layout import OBSERVABLES, data_arrays
+    from sweep.store.observed import with_observables
     from sweep.store.blocks import (chunk_file, finish_run, has_checksums, read_checksums, read_done, read_done_array,
                                     record_failures, recreate_done, remove_partials, set_attributes, trailing_checksum,
                                     write_block,

@@ -18,8 +18,8 @@ from zarr.codecs import Crc32cCodec
 from sweep.errors import StoreError
 from sweep.store import durable
 from sweep.store.chunks import remove_stale
-from sweep.store.layout import (CHECKSUMS, DATA_ARRAYS, DamagedDone, _WRITE_EMPTY, _array, _checksums_array,
-                                _now, brief, consolidate)
+from sweep.store.layout import (CHECKSUMS, DATA_ARRAYS, OBSERVABLES, DamagedDone, _WRITE_EMPTY, _array,
+                                _checksums_array, _now, brief, consolidate)
 from sweep.store.records import mark as _mark_recorded
 from sweep.store.records import merge_sums as _merge_recorded_sums
 from sweep.store.records import read_indices as _recorded_by_shards
@@ -30,7 +30,7 @@ if TYPE_CHECKING:
 
 
 def write_block(path: str | Path, point: int, start: int, stop: int, result: KernelResult,
-                store_id: str = "") -> tuple[int, ...]:
+                store_id: str = "", observables: np.ndarray | None = None) -> tuple[int, ...]:
     """Write one task's replicates into the chunks it alone owns, durably. Runs on a worker.
 
     Each chunk goes to a temporary file that is fsynced and renamed into place, and its folder
@@ -39,8 +39,11 @@ def write_block(path: str | Path, point: int, start: int, stop: int, result: Ker
     the fill value (a task whose replicates all failed). With ``store_id`` (the store's
     ``attrs["store_id"]``) the worker keeps the store's array handles open between tasks.
 
-    Returns the CRC-32C that ends each of the three chunk files (0 for an array written
-    before checksums were kept), for the completion record to keep beside ``done``.
+    ``observables`` (replicates, times, observables), when the store has that array, is its
+    fourth chunk (``sweep.model.observables.Readout.evaluate``).
+
+    Returns the CRC-32C that ends each chunk file (0 for an array written before checksums were
+    kept), in the order of ``data_arrays``, for the completion record to keep beside ``done``.
 
     Raises
     ------
@@ -50,22 +53,33 @@ def write_block(path: str | Path, point: int, start: int, stop: int, result: Ker
     from sweep.store.chunks import ChunkWriter
 
     root = Path(path)
+    chunks = _chunks(result, observables)
     writer = ChunkWriter.of(root, store_id) if store_id else None
     if writer is None:
-        return _write_block_with_zarr(root, point, start, stop, result)
+        return _write_block_with_zarr(root, point, start, stop, chunks)
     per_chunk = writer.arrays["status"].chunks[1]
     if start % per_chunk or stop - start > per_chunk:
         raise StoreError(f"{root}: replicates {start}:{stop} are not one chunk of {per_chunk}")
     block = start // per_chunk
-    return tuple(writer.write(name, point, block, values)
-                 for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)))
+    if (OBSERVABLES in writer.arrays) != (observables is not None):
+        raise StoreError(f"{root}: the store {'has' if OBSERVABLES in writer.arrays else 'has no'} observables "
+                         "array but the task computed " + ("none" if observables is None else "some"))
+    return tuple(writer.write(name, point, block, values) for name, values in chunks.items())
 
 
-def _write_block_with_zarr(root: Path, point: int, start: int, stop: int, result: KernelResult) -> tuple[int, ...]:
+def _chunks(result: KernelResult, observables: np.ndarray | None) -> dict[str, np.ndarray]:
+    """A block's chunks by array name, in the order of the recorded checksums."""
+    out = dict(zip(DATA_ARRAYS, (result.counts, result.status, result.events)))
+    if observables is not None:
+        out[OBSERVABLES] = observables
+    return out
+
+
+def _write_block_with_zarr(root: Path, point: int, start: int, stop: int, chunks: dict) -> tuple[int, ...]:
     """The same through zarr (a store whose codecs ``sweep.store.chunks`` does not write itself)."""
     g = zarr.open_group(root, mode="r+")
     sums = []
-    for name, values in zip(DATA_ARRAYS, (result.counts, result.status, result.events)):
+    for name, values in chunks.items():
         array = g[name].with_config(_WRITE_EMPTY)
         target = chunk_file(root, name, array, point, start)
         if not durable.inside(target.parent, root):
@@ -108,7 +122,7 @@ def write_checksums(path: Path, sums: np.ndarray) -> None:
         g = zarr.open_group(path, mode="r+", use_consolidated=False)
         if CHECKSUMS in g:
             del g[CHECKSUMS]
-        array = _checksums_array(g, sums.shape[0], sums.shape[1])
+        array = _checksums_array(g, sums.shape[0], sums.shape[1], DATA_ARRAYS + (OBSERVABLES,) * (sums.shape[2] > 3))
     array.with_config(_WRITE_EMPTY)[:] = sums
 
 

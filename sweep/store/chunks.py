@@ -129,7 +129,8 @@ class ChunkWriter:
 
         g = zarr.open_group(root, mode="r")
         arrays = {}
-        for name in cls.NAMES:
+        # the observables array only exists in a store whose model has observables (sweep.store.layout)
+        for name in cls.NAMES + (("observables",) if "observables" in g else ()):
             meta = g[name].metadata
             codecs = list(meta.codecs)
             if not codecs or not isinstance(codecs[0], BytesCodec) or (codecs[0].endian is not None

@@ -213,11 +213,12 @@ def rebuild_done(path: Path) -> int:
     rpt = status.chunks[1]
     n_p, n_b = status.shape[0], -(-status.shape[1] // rpt)
     done = np.zeros((n_p, n_b), dtype=bool)
-    sums = np.zeros((n_p, n_b, len(store.DATA_ARRAYS)), dtype=np.uint32)
-    arrays = [g[name] for name in store.DATA_ARRAYS]
+    names = store.data_arrays(g)  # with observables, when the store has them: a task owns one chunk of each
+    sums = np.zeros((n_p, n_b, len(names)), dtype=np.uint32)
+    arrays = [g[name] for name in names]
     for p in range(n_p):
         for b in range(n_b):
-            found = [_chunk_checksum(path, name, a, p, b * rpt) for name, a in zip(store.DATA_ARRAYS, arrays)]
+            found = [_chunk_checksum(path, name, a, p, b * rpt) for name, a in zip(names, arrays)]
             if all(s is not None for s in found):
                 done[p, b] = True
                 sums[p, b] = found
@@ -279,7 +280,7 @@ def verify(path: str | Path, repair: bool = True) -> Verification:
         out.done_damaged = str(exc)
         done = None
     g = zarr.open_group(path, mode="r", use_consolidated=False)
-    arrays = {name: g[name] for name in store.DATA_ARRAYS}
+    arrays = {name: g[name] for name in store.data_arrays(g)}
     out.checksums = all(store.has_checksums(a) for a in arrays.values())
     sums = store.read_checksums(path)
     out.positions = sums is not None

@@ -64,6 +64,7 @@ INCOMPLETE = ".sweep-incomplete"  # present from the first byte of a store's cre
 BUILDING = ".sweep-building"  # where the layout is built before it is moved into place
 COORDINATES = ("time", "species", "param", "params")
 DATA_ARRAYS = ("counts", "status", "events")
+OBSERVABLES = "observables"  # a fourth data array, only in a store whose model has observables
 CHECKSUMS = "checksums"
 # write every chunk, even one equal to the fill value (zarr's default deletes those): a runtime
 # setting, not kept in an array's metadata, so every handle that writes needs it
@@ -132,16 +133,40 @@ def _build(build: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"), data)
     _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"), data)
     _array(g, "done", (n_p, n_blocks), (n_p, n_blocks), "bool", False, ("point", "block"), data)[:] = False
-    _checksums_array(g, n_p, n_blocks)
+    names = _observables_arrays(g, spec, (n_p, n_r, n_t), rb)
+    _checksums_array(g, n_p, n_blocks, DATA_ARRAYS + names)
     write_coordinates(g, spec, points, COORDINATES, create=True)
     consolidate(build)
 
 
-def _checksums_array(g: zarr.Group, n_p: int, n_blocks: int) -> zarr.Array:
-    """The CRC-32C of each done task's three data chunks, as recorded when the task finished (0: none)."""
-    array = _array(g, CHECKSUMS, (n_p, n_blocks, len(DATA_ARRAYS)), (max(n_p, 1), max(n_blocks, 1), len(DATA_ARRAYS)),
+def _observables_arrays(g: zarr.Group, spec: Spec, shape: tuple[int, int, int], rb: int) -> tuple[str, ...]:
+    """``observables`` (point, replicate, time, observable; float64, NaN = none) chunked as ``counts``, and its
+    ``observable`` coordinate; nothing at all for a model without observables, so such a store keeps its bytes."""
+    names = [name for name, _ in spec.model.observables]
+    if not names:
+        return ()
+    n_p, n_r, n_t = shape
+    data = {"write_empty_chunks": True}
+    _array(g, OBSERVABLES, (n_p, n_r, n_t, len(names)), (1, rb, n_t, len(names)), "float64", np.nan,
+           ("point", "replicate", "time", "observable"), data)
+    _array(g, "observable", (len(names),), (len(names),), str, "", ("observable",), data)[:] = np.asarray(
+        names, dtype=object)
+    return (OBSERVABLES,)
+
+
+def data_arrays(g: zarr.Group | Path) -> tuple[str, ...]:
+    """The arrays every task writes one chunk of, in the order of ``checksums``: ``DATA_ARRAYS``, then
+    ``observables`` when the store has it."""
+    if not isinstance(g, zarr.Group):
+        g = zarr.open_group(g, mode="r", use_consolidated=False)
+    return DATA_ARRAYS + ((OBSERVABLES,) if OBSERVABLES in g else ())
+
+
+def _checksums_array(g: zarr.Group, n_p: int, n_blocks: int, names: tuple[str, ...] = DATA_ARRAYS) -> zarr.Array:
+    """The CRC-32C of each done task's data chunks, as recorded when the task finished (0: none)."""
+    array = _array(g, CHECKSUMS, (n_p, n_blocks, len(names)), (max(n_p, 1), max(n_blocks, 1), len(names)),
                    "uint32", 0, ("point", "block", "array"), {"write_empty_chunks": True})
-    array.attrs["arrays"] = list(DATA_ARRAYS)
+    array.attrs["arrays"] = list(names)
     array[:] = 0
     return array
 
@@ -250,6 +275,7 @@ def _attributes(spec: Spec, points: np.ndarray) -> dict:
         "max_events": spec.max_events,
         **({"default_species": spec.plot_species} if spec.plot_species else {}),
         **({"time_unit": spec.time_unit} if spec.time_unit else {}),  # plots and reports label time with it
+        **({"observables": dict(spec.observables)} if spec.observables else {}),  # name -> expression, for readers
         # what decides the bytes (sweep.identity): a resume must match it
         "identity": fingerprint,
         "identity_sha256": identity.digest(fingerprint),

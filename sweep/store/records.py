@@ -31,7 +31,9 @@ import numpy as np
 from sweep.store import durable
 SHARDS_DIR = "shards"
 _ENTRY = np.dtype("<i8")
-_SUMS = np.dtype([("task", "<i8"), ("sums", "<u4", (3,)), ("pad", "<u4")])
+# four checksum slots in 24 bytes: counts, status, events, then observables (0 in a store without them, where
+# the fourth slot was padding and written as 0, so records written before observables read unchanged)
+_SUMS = np.dtype([("task", "<i8"), ("sums", "<u4", (4,))])
 # appends never follow a symlink planted in a store someone else prepared
 _APPEND = os.O_WRONLY | os.O_APPEND | os.O_CREAT | os.O_NOFOLLOW
 
@@ -62,7 +64,9 @@ def append_done(store: Path, index: int, count: int, tasks: list[int], sums: lis
     """
     if sums is not None:
         entries = np.zeros(len(tasks), dtype=_SUMS)
-        entries["task"], entries["sums"] = tasks, sums
+        entries["task"] = tasks
+        for k, one in enumerate(sums):
+            entries["sums"][k, :len(one)] = one
         _append(sums_file(store, index, count), entries.tobytes())
     _append(done_file(store, index, count), np.asarray(tasks, dtype=_ENTRY).tobytes())
 
@@ -111,10 +115,10 @@ def read_sums(store: Path) -> np.ndarray:
 
 
 def merge_sums(sums: np.ndarray, recorded: np.ndarray) -> np.ndarray:
-    """Put recorded checksums into a (points, blocks, 3) array, in place; returns it."""
+    """Put recorded checksums into a (points, blocks, arrays) array, in place; returns it."""
     flat = sums.reshape(-1, sums.shape[-1])
     ok = (recorded["task"] >= 0) & (recorded["task"] < flat.shape[0])
-    flat[recorded["task"][ok]] = recorded["sums"][ok]
+    flat[recorded["task"][ok]] = recorded["sums"][ok][:, :flat.shape[-1]]
     return sums
 
 

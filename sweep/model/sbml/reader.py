@@ -185,6 +185,8 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     _refuse(ctx)
     parameters = {name: float(value) for name, value in ctx.values.items()}
     table = {"species": initial, "parameters": parameters, "reactions": reactions}
+    if observed:  # checked and stored like a TOML model's [observables] (sweep.model.observables)
+        table["observables"] = dict(observed)
     return Imported(table, tuple((n, t) for n, t in ctx.derived.items()), tuple(ctx.aliases.items()),
                     tuple(ctx.notes), tuple(ctx.ode_only), tuple(observed.items()), volume.time_unit(model))
 
