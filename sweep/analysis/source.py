@@ -52,9 +52,11 @@ def valid_counts(ds: xr.DataArray | xr.Dataset, species: str | list[str] | None 
     counts = counts.chunk({d: chunks[d] for d in counts.dims})
     finished = (ds["status"] == 0).chunk({"point": chunks["point"], "replicate": -1})
     known = counts >= 0  # -1 marks an unknown count; an observable is NaN there already and may be negative
-    if IS_OBSERVABLE in counts.coords:
-        known = known | (counts[IS_OBSERVABLE] & counts.notnull())
-    return counts.where(finished & known)
+    if IS_OBSERVABLE not in counts.coords:
+        return counts.where(finished & known)
+    known = known | (counts[IS_OBSERVABLE] & counts.notnull())
+    # the flag has done its work: results written from these values keep the store's plain coordinates
+    return counts.where(finished & known).drop_vars(IS_OBSERVABLE)
 
 
 def _chunks(sizes) -> dict[str, int]:

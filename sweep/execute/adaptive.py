@@ -208,8 +208,12 @@ class Planner:
 
         g = zarr.open_group(self.spec.store, mode="r")
         t = list(self.spec.times).index(self.target.time)
-        s = list(self.spec.model.species).index(self.target.species)
         counts, status = g["counts"], g["status"]
+        observed = self.target.species not in self.spec.model.species
+        if not observed:
+            s = list(self.spec.model.species).index(self.target.species)
+        else:  # an observable (sweep.model.observables): its column, NaN where the replicate did not finish
+            counts, s = g["observables"], [n for n, _ in self.spec.observables].index(self.target.species)
         spans: dict[tuple[int, int], list[int]] = {}
         for p in points:
             spans.setdefault((self.data[p].size, self._replicates(p)), []).append(p)
@@ -218,7 +222,7 @@ class Planner:
             rows = np.asarray(group)
             x = counts.get_orthogonal_selection((rows, slice(have, want), t, s)).astype(np.float64)
             codes = status.get_orthogonal_selection((rows, slice(have, want)))
-            x[(codes != 0) | (x < 0)] = np.nan  # as sweep.analysis.source masks them
+            x[(codes != 0) | ((x < 0) & (not observed))] = np.nan  # as sweep.analysis.source masks them
             for p, new in zip(group, x):
                 self.data[p] = np.concatenate([self.data[p], new])
 

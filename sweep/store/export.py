@@ -76,7 +76,10 @@ def export(path: str | Path, output: str | Path, *, format: str | None = None, p
     ds = store.open_dataset(path)
     p_idx = _points(ds.sizes["point"], points, str(path))
     t_idx = _times(ds["time"].values, times, str(path))
-    s_idx = _species([str(s) for s in ds["species"].values], species, str(path))
+    # observables are named like species, after them (sweep.store.observed); -1 marks none asked for
+    n_s = ds.sizes["species"]
+    observed = [str(s) for s in ds["observable"].values] if "observable" in ds else []
+    s_idx = _species([str(s) for s in ds["species"].values] + observed, species, str(path))
     try:
         output.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -86,7 +89,8 @@ def export(path: str | Path, output: str | Path, *, format: str | None = None, p
     partial = output.with_name(f".{output.name}.partial")
     try:
         if fmt == "netcdf":
-            engine, rows = _netcdf(ds.isel(point=p_idx, time=t_idx, species=s_idx), partial)
+            picked = {"species": s_idx[s_idx < n_s]} | ({"observable": s_idx[s_idx >= n_s] - n_s} if observed else {})
+            engine, rows = _netcdf(ds.isel(point=p_idx, time=t_idx, **picked), partial)
         else:
             engine, rows = "pyarrow", _table(path, ds, partial, fmt, p_idx, t_idx, s_idx)
         os.replace(partial, output)
@@ -157,7 +161,11 @@ def _table(path: Path, ds, output: Path, fmt: str, p_idx, t_idx, s_idx) -> int:
     params = ds["params"].values
     names = [str(p) for p in ds["param"].values]
     times = ds["time"].values[t_idx]
-    species = pa.array([str(s) for s in ds["species"].values[s_idx]])
+    labels = [str(s) for s in ds["species"].values] + ([str(s) for s in ds["observable"].values] if "observable" in ds
+                                                        else [])
+    species = pa.array([labels[i] for i in s_idx])
+    read = _reader(g, t_idx, s_idx)
+    observed = bool(np.any(s_idx >= counts.shape[3]))
     writer, rows = None, 0
     try:
         for p in p_idx:
@@ -166,14 +174,15 @@ def _table(path: Path, ds, output: Path, fmt: str, p_idx, t_idx, s_idx) -> int:
                 ran = np.flatnonzero(status[p, start:stop] >= 0)
                 if not ran.size:
                     continue
-                data = counts.get_orthogonal_selection((int(p), slice(start, stop), t_idx, s_idx))[ran]
-                table = _rows(int(p), params[p], names, start + ran, status[p, start:stop][ran], times, species, data)
+                data = read(int(p), start, stop)[ran]
+                table = _rows(int(p), params[p], names, start + ran, status[p, start:stop][ran], times, species, data,
+                              observed)
                 writer = writer or _writer(output, fmt, table.schema)
                 writer.write_table(table)
                 rows += table.num_rows
         if writer is None:  # nothing run yet: still write the header
             writer = _writer(output, fmt, _rows(0, params[0] if len(params) else [], names, np.arange(0), np.arange(0),
-                                               times, species, np.zeros((0, len(times), len(species)), counts.dtype)).schema)
+                                               times, species, read(0, 0, 0), observed).schema)
     except OSError as exc:
         raise StoreError(f"{output}: cannot write: {exc.strerror or exc}") from exc
     finally:
@@ -182,7 +191,26 @@ def _table(path: Path, ds, output: Path, fmt: str, p_idx, t_idx, s_idx) -> int:
     return rows
 
 
-def _rows(point, values, names, replicates, status, times, species, data):
+def _reader(g, t_idx, s_idx):
+    """A block's selected columns: counts (their own dtype, -1 unknown), or with observables float64 with
+    NaN for unknown (a count's -1 becomes NaN; an observable may be negative)."""
+    counts = g["counts"]
+    n_s = counts.shape[3]
+    if np.all(s_idx < n_s):
+        return lambda p, start, stop: counts.get_orthogonal_selection((p, slice(start, stop), t_idx, s_idx))
+    observed, mine = g["observables"], s_idx >= n_s
+
+    def read(p: int, start: int, stop: int) -> np.ndarray:
+        out = np.empty((stop - start, len(t_idx), len(s_idx)), np.float64)
+        part = counts.get_orthogonal_selection((p, slice(start, stop), t_idx, s_idx[~mine])).astype(np.float64)
+        out[:, :, ~mine] = np.where(part < 0, np.nan, part)
+        out[:, :, mine] = observed.get_orthogonal_selection((p, slice(start, stop), t_idx, s_idx[mine] - n_s))
+        return out
+
+    return read
+
+
+def _rows(point, values, names, replicates, status, times, species, data, observed=False):
     """One chunk as an Arrow table; species is dictionary-encoded (one string per species)."""
     import pyarrow as pa
 
@@ -198,7 +226,9 @@ def _rows(point, values, names, replicates, status, times, species, data):
     columns["species"] = pa.DictionaryArray.from_arrays(pa.array(np.tile(np.arange(n_s, dtype=np.int32), n_r * n_t)),
                                                         species)
     # int32 molecule counts, or float64 for methods with a real-valued state; -1 is unknown either way
-    columns["count"] = pa.array(flat, mask=flat < 0, type=pa.from_numpy_dtype(flat.dtype))
+    # (with observables: float64, NaN unknown)
+    unknown = np.isnan(flat) if observed else flat < 0
+    columns["count"] = pa.array(flat, mask=unknown, type=pa.from_numpy_dtype(flat.dtype))
     return pa.table(columns)
 
 
@@ -232,4 +262,4 @@ def _netcdf(ds, output: Path) -> tuple[str, int]:
         ds.to_netcdf(output, engine=engine)
     except OSError as exc:
         raise StoreError(f"{output}: cannot write: {exc.strerror or exc}") from exc
-    return engine, int(ds["counts"].size)
+    return engine, int(ds["counts"].size) + (int(ds["observables"].size) if "observables" in ds else 0)
