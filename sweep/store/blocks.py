@@ -149,7 +149,8 @@ def remove_partials(path: Path) -> int:
     removes them (``sweep.store.chunks``), so a resume need not list every folder of the store.
     """
     removed = 0
-    folders = [path] + [path / name for name in ("done", CHECKSUMS, "time", "species", "param", "params")]
+    client_written = ("done", CHECKSUMS, "time", "species", "param", "params", "observable")
+    folders = [path] + [path / name for name in client_written]
     for folder in folders:
         leftovers = folder.rglob("*.partial") if folder != path else folder.glob("*.partial")
         for leftover in leftovers:

@@ -129,6 +129,8 @@ def coordinate_problems(path: Path, spec: Spec, points: np.ndarray) -> dict[str,
     """Coordinate arrays that are missing, fail their checksum, or differ from the spec's values."""
     expected = {"time": np.asarray(spec.times, dtype=np.float64), "species": list(spec.model.species),
                 "param": list(spec.param_names), "params": np.asarray(points, dtype=np.float64)}
+    if spec.observables:  # the observables' names: a coordinate only their stores have
+        expected["observable"] = [name for name, _ in spec.observables]
     problems = {}
     for name, want in expected.items():
         try:

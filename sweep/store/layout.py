@@ -133,13 +133,14 @@ def _build(build: Path, spec: Spec, points: np.ndarray, n_blocks: int) -> None:
     _array(g, "status", (n_p, n_r), (1, rb), "int8", -1, ("point", "replicate"), data)
     _array(g, "events", (n_p, n_r), (1, rb), "int64", -1, ("point", "replicate"), data)
     _array(g, "done", (n_p, n_blocks), (n_p, n_blocks), "bool", False, ("point", "block"), data)[:] = False
-    names = _observables_arrays(g, spec, (n_p, n_r, n_t), rb)
+    names = _observables_arrays(g, spec, points, (n_p, n_r, n_t), rb)
     _checksums_array(g, n_p, n_blocks, DATA_ARRAYS + names)
     write_coordinates(g, spec, points, COORDINATES, create=True)
     consolidate(build)
 
 
-def _observables_arrays(g: zarr.Group, spec: Spec, shape: tuple[int, int, int], rb: int) -> tuple[str, ...]:
+def _observables_arrays(g: zarr.Group, spec: Spec, points: np.ndarray, shape: tuple[int, int, int],
+                        rb: int) -> tuple[str, ...]:
     """``observables`` (point, replicate, time, observable; float64, NaN = none) chunked as ``counts``, and its
     ``observable`` coordinate; nothing at all for a model without observables, so such a store keeps its bytes."""
     names = [name for name, _ in spec.model.observables]
@@ -149,8 +150,7 @@ def _observables_arrays(g: zarr.Group, spec: Spec, shape: tuple[int, int, int], 
     data = {"write_empty_chunks": True}
     _array(g, OBSERVABLES, (n_p, n_r, n_t, len(names)), (1, rb, n_t, len(names)), "float64", np.nan,
            ("point", "replicate", "time", "observable"), data)
-    _array(g, "observable", (len(names),), (len(names),), str, "", ("observable",), data)[:] = np.asarray(
-        names, dtype=object)
+    write_coordinates(g, spec, points, ("observable",), create=True)
     return (OBSERVABLES,)
 
 
@@ -180,6 +180,9 @@ def write_coordinates(g: zarr.Group, spec: Spec, points: np.ndarray, names, crea
         "time": ((n_t,), (n_t,), "float64", np.nan, ("time",), np.asarray(spec.times)),
         "species": ((n_s,), (n_s,), str, "", ("species",), np.asarray(spec.model.species, dtype=object)),
         "param": ((n_q,), (max(n_q, 1),), str, "", ("param",), np.asarray(spec.param_names, dtype=object)),
+        # only in a store whose model has observables (``_observables_arrays``)
+        "observable": ((len(spec.observables),), (max(len(spec.observables), 1),), str, "", ("observable",),
+                       np.asarray([name for name, _ in spec.observables], dtype=object)),
     }
     for name in names:
         shape, chunks, dtype, fill, dims, values = layout[name]

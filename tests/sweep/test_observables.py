@@ -10,6 +10,8 @@ expression evaluated by hand with numpy on the stored counts (exact, or to float
 
 from __future__ import annotations
 
+import shutil
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -126,11 +128,18 @@ def test_unfinished_replicates_give_nan_in_a_real_run(tmp_path, spec_file):
     finished = status == 0
     np.testing.assert_array_equal(obs[finished][..., 0], counts[finished][..., 0] + counts[finished][..., 1])
     assert integrity.verify(spec.store, repair=False).sound
-    # the observables chunk is part of the record: a damaged one is found by --verify
+    # the observables chunk is part of the record, and their names a coordinate like species: a damaged
+    # chunk is found by --verify (which unmarks its task) and a lost coordinate too; a rerun restores both
     chunk = next(p for p in (spec.store / "observables").rglob("*") if p.is_file() and p.name != "zarr.json")
     chunk.write_bytes(chunk.read_bytes()[:-1] + bytes([chunk.read_bytes()[-1] ^ 1]))
-    found = integrity.verify(spec.store, repair=False)
+    shutil.rmtree(spec.store / "observable")
+    found = integrity.verify(spec.store)
     assert any("observables chunk" in problem for _, _, problem in found.tasks), found.tasks
+    assert "observable" in found.coordinates
+    assert sweep.run_shard(spec, 1, 1).complete
+    assert integrity.verify(spec.store, repair=False).sound
+    np.testing.assert_array_equal(xr.open_zarr(spec.store)["observables"].values, obs)  # the same values again
+    assert list(xr.open_zarr(spec.store)["observable"].values) == ["total", "fluor"]
 
 
 def test_readout_masks_unknown_samples_and_unfinished_replicates():
