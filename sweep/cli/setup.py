@@ -55,6 +55,8 @@ def check(
     tasks = points.shape[0] * n_blocks(spec.replicates, spec.replicates_per_task)  # counted, not listed
     console.print(f"[green]ok[/] {shown(spec_path)}  (SHA-256 {spec.sha256[:12]})")
     console.print(f"species: {shown(species)}")
+    if spec.observables:  # computed from the counts and stored beside them (sweep.model.observables)
+        console.print(f"observables: {shown('; '.join(f'{n} = {t}' for n, t in spec.observables))}")
     if model.omega is not None:
         console.print(f"units: molar constants in a volume of {model.volume:g} L (N_A V = {model.omega:.6g}); "
                       "mass-action constants become c = k m!/(N_A V)^(order-1), laws read concentrations")

@@ -219,6 +219,8 @@ def test_sbml_assignment_rule_reading_species_is_a_stored_observable(tmp_path):
                                      "samples = 3\n", encoding="utf-8")
     spec = sweep.load(tmp_path / "s.toml", store=tmp_path / "s.zarr")
     assert [(n, e.text) for n, e in spec.model.observables] == [("total", "A + B")]
+    checked = runner.invoke(app, ["check", str(tmp_path / "s.toml")])
+    assert checked.exit_code == 0 and "observables: total = A + B" in checked.output, checked.output
     assert sweep.run_shard(spec, 1, 1).complete
     ds = xr.open_zarr(spec.store)
     assert list(ds["observable"].values) == ["total"]
