@@ -232,3 +232,20 @@ def test_sbml_observable_names_go_through_the_same_checks():
     assert imported.table["observables"] == {"total": "A + B"}
     with pytest.raises(SpecError, match="observables.total"):
         parse({"total": "A + Z"}, ("A", "B"), {"k"}, {"convert"}, "m.xml", "observables")
+
+
+def test_export_names_observables_like_species(stored, tmp_path):
+    """Rows of a selected observable carry its stored value; a count beside it keeps its own value."""
+    import pandas as pd
+
+    spec, ds = stored
+    out = tmp_path / "e.csv"
+    result = runner.invoke(app, ["export", str(spec.store), "-o", str(out), "--species", "fluor", "--species", "A",
+                                 "--point", "1", "--time", "8"])
+    assert result.exit_code == 0, result.output
+    rows = pd.read_csv(out)
+    fluor = rows[rows["species"] == "fluor"].sort_values("replicate")["count"].to_numpy()
+    a = rows[rows["species"] == "A"].sort_values("replicate")["count"].to_numpy()
+    np.testing.assert_array_equal(fluor, ds["observables"].sel(observable="fluor").isel(point=1, time=2).values)
+    np.testing.assert_array_equal(a, ds["counts"].sel(species="A").isel(point=1, time=2).values)
+    assert (fluor < 0).any()  # a negative observable is a value, not "unknown"
