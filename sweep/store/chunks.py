@@ -1,6 +1,7 @@
 """Write one task's data chunks fast and durably, on a worker, with handles opened once per process.
 
-A task writes three chunks (``counts``, ``status``, ``events``) that no other writer touches.
+A task writes three chunks (``counts``, ``status``, ``events``; four with ``observables``) that no other
+writer touches.
 Going through zarr for each costs an open of the group, its metadata and three round trips
 through zarr's event loop (about 10 ms a task here); this writer reads the three arrays'
 metadata once per worker process and store, encodes each chunk with the array's own codec

@@ -15,6 +15,10 @@ events     point, replicate                reaction events fired
 done       point, block                    completion record, true once a task's data is written
 =========  ==============================  ====================================================
 
+A model with observables adds ``observables`` (point, replicate, time, observable; float64, NaN
+where the replicate did not finish), chunked as ``counts`` and written by the same task, and the
+``observable`` coordinate; a store without them has neither, and the bytes it always had.
+
 One chunk of ``counts``/``status``/``events`` is one task's (point, replicate block), so
 no two writers ever share a chunk. Only the client writes ``done``, after the worker's
 write has returned; zarr >= 3.1.3 writes each chunk to a temporary file and renames it,
