@@ -87,6 +87,24 @@ def parse(table: Any, species: tuple[str, ...], parameters: set[str], reactions:
     return tuple(out)
 
 
+def storable(items: Mapping[str, str]) -> tuple[dict[str, str], list[tuple[str, str]]]:
+    """Split imported observables (an SBML rule's inlined math) into those the whitelist reads and the rest.
+
+    An assignment rule is an observable only as a bonus of the import: one whose inlined
+    expression is too long or too deep for the parser must not make the whole model fail, so
+    it is left out with a note (element, why) for ``sweep check`` instead.
+    """
+    kept, dropped = {}, []
+    for name, text in items.items():
+        try:
+            expr.parse(text, "", name)
+        except SpecError as exc:
+            dropped.append((f"assignment rule for {name}", f"not kept as an observable: {exc.problem}"))
+            continue
+        kept[name] = text
+    return kept, dropped
+
+
 @dataclass(frozen=True)
 class Readout:
     """What a worker needs to compute a model's observables: small and picklable (tuples only).
@@ -131,4 +149,4 @@ class Readout:
         return out
 
 
-__all__ = ["MAX_OBSERVABLES", "Readout", "parse"]
+__all__ = ["MAX_OBSERVABLES", "Readout", "parse", "storable"]

@@ -25,6 +25,7 @@ from sweep.spec import inputs
 from sweep.errors import SpecError
 from sweep.model.sbml import initial as initial_values
 from sweep.model.sbml import laws, rules, volume
+from sweep.model import observables
 from sweep.model.sbml.math import AVOGADRO, TIME
 from sweep.model.sbml.reactions import convert
 from sweep.model.sbml.units import molecules_per
@@ -180,7 +181,8 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     _time(ctx, reactions)
     counts = lambda tree, beta: laws.to_counts(tree, laws.names(tree) & ctx.species_ids, ctx.beta, beta)  # noqa: E731
     reactions.update(rules.rate_reactions(ctx, counts))
-    observed = rules.observables(ctx, counts)
+    observed, unread = observables.storable(rules.observables(ctx, counts))
+    ctx.notes.extend(unread)
     volume.describe_counts(ctx, initial, model_volume)
     _refuse(ctx)
     parameters = {name: float(value) for name, value in ctx.values.items()}
