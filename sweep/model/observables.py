@@ -27,9 +27,10 @@ import numpy as np
 
 from sweep.errors import SpecError
 from sweep.model import expr
+from sweep.spec import limits
 
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
-MAX_OBSERVABLES = 1000  # a column each in the store's chunks; more is a different tool's job
+MAX_OBSERVABLES = limits.MAX_OBSERVABLES
 
 
 def parse(table: Any, species: tuple[str, ...], parameters: set[str], reactions: set[str], source: str,

@@ -68,6 +68,9 @@ MAX_CHUNK_BYTES = 256 * 2**20
 # event cap per replicate: over three years at 10^7 events/s, and far from int64 overflow in any
 # sum of event counts
 MAX_EVENT_CAP = 10**15
+# observables of one model: each is a column of the task's observables chunk (float64), which
+# ``check_observables`` holds to MAX_CHUNK_BYTES like counts
+MAX_OBSERVABLES = 1000
 # TOML's own integers are 64-bit (toml.io, "Integer"); tomllib reads larger ones without complaint
 INT64_MIN, INT64_MAX = -(2**63), 2**63 - 1
 
@@ -132,6 +135,24 @@ def check_sweep(points: int, replicates: int, per_task: int, n_times: int, n_spe
     raise SpecError(src, replicates_field, f"{points:,} points x {replicates:,} replicates in tasks of {per_task:,} "
                     f"make {tasks:,} tasks, more than {MAX_TASKS:,}", replicates,
                     f"use {wider}at most {most:,} replicates per point, or fewer points")
+
+
+def check_observables(per_task: int, n_times: int, n_observables: int, src: str) -> None:
+    """Refuse a task's ``observables`` chunk (replicates x samples x observables x 8 bytes) beyond
+    ``MAX_CHUNK_BYTES``: the worker holds it beside the counts chunk.
+
+    Raises
+    ------
+    SpecError
+        Naming ``run.replicates_per_task``, with the most that fit.
+    """
+    row = n_times * n_observables * 8
+    if row and per_task * row > MAX_CHUNK_BYTES:
+        raise SpecError(src, "run.replicates_per_task", f"one task's observables chunk ({per_task:,} replicates x "
+                        f"{n_times:,} samples x {n_observables:,} observables x 8 bytes) is {per_task * row:,} bytes, "
+                        f"more than {mib(MAX_CHUNK_BYTES)}", per_task,
+                        f"use at most {max(MAX_CHUNK_BYTES // row, 1):,} replicates per task, fewer samples or "
+                        "fewer observables")
 
 
 def mib(n: int) -> str:

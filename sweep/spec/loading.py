@@ -275,6 +275,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
     limits.check_sweep(designs.size(design), adaptive.max_replicates if adaptive is not None else replicates,
                        per_task, len(times), len(model.species), lambda: _itemsize(method),
                        "run.adaptive.max_replicates" if adaptive is not None else "run.replicates", src)
+    limits.check_observables(per_task, len(times), len(model.observables), src)
     hashed = text.encode() + b"\0" + model_text.encode()
     if design.option("file_sha256"):
         # a design read from a file (a table of points): changing the file changes the sweep

@@ -256,3 +256,15 @@ def test_an_sbml_rule_too_long_to_read_is_left_out_with_a_note_not_a_refusal():
     kept, notes = storable({"short": "A + B", "long": " + ".join(["A"] * 400)})
     assert kept == {"short": "A + B"}
     assert notes[0][0] == "assignment rule for long" and "longer than" in notes[0][1]
+
+
+def test_an_observables_chunk_beyond_the_chunk_limit_is_refused(spec_file):
+    """20,000 replicates x 1,000 samples x 3 observables x 8 bytes = 480 MB > 256 MiB (docs/limits.md),
+    while that task's counts chunk (1 species, int32) is 80 MB and fits."""
+    model = TWO_SPECIES.replace("B = 0\n", "", 1).split("[model.reactions]")[0] + (
+        '[model.reactions]\nmake_a = { reaction = "0 -> A", rate = "ka" }\n'
+        '[model.observables]\nx = "A"\ny = "2 * A"\nz = "3 * A"\n')
+    body = "[run]\nreplicates = 20000\nreplicates_per_task = 20000\n[time]\nend = 1.0\nsamples = 1000\n"
+    result = runner.invoke(app, ["check", str(spec_file(body, model=model))])
+    assert result.exit_code == 2, result.output
+    assert "run.replicates_per_task" in result.output and "observables chunk" in " ".join(result.output.split())
