@@ -2,12 +2,14 @@
 
 from __future__ import annotations
 
+import shlex
 from pathlib import Path
 from typing import Annotated
 
 import typer
 from rich.table import Table
 
+from sweep.cli import clustering
 from sweep.cli.common import console, duration, errors, exits_on_errors, shown
 
 EXIT_INTERRUPTED = 130
@@ -27,6 +29,12 @@ def fit(
     cells: Annotated[int, typer.Option(min=2, help="With --simulate-data: cells per condition and time.")] = 200,
     data_seed: Annotated[int, typer.Option(help="With --simulate-data: seed of the data's simulation.")] = 1,
     species: Annotated[str | None, typer.Option(help="With --simulate-data: species to write, comma-separated (default: the last species).")] = None,
+    cluster: Annotated[clustering.ClusterKind | None, typer.Option(help="Run the Dask workers as batch jobs for the whole fit (settings: --profile, then the fit spec's \\[cluster] table, then the flags below).")] = None,
+    profile: Annotated[Path | None, typer.Option(help="With --cluster: site profile, a TOML file with a \\[cluster] table (see configs/slurm_site_example.toml).")] = None,
+    partition: Annotated[str | None, typer.Option(help="With --cluster: Slurm partition.")] = None,
+    account: Annotated[str | None, typer.Option(help="With --cluster: Slurm account to charge.")] = None,
+    walltime: Annotated[str | None, typer.Option(help="With --cluster: time limit of each worker job, HH:MM:SS.")] = None,
+    max_jobs: Annotated[int | None, typer.Option(min=1, help="With --cluster: most worker jobs at once.")] = None,
 ) -> None:
     """Fit the [fit.priors] parameters to the observed data; run again to resume where it stopped."""
     from sweep.execute.execution import Execution
@@ -45,7 +53,16 @@ def fit(
     if dry_run:
         _dry_run(loaded, workers)
         return
-    execution = Execution("shard", shard=(1, 1)) if serial else Execution.choose(workers=workers, scheduler=scheduler)
+    flags = {"partition": partition, "account": account, "walltime": walltime, "max_jobs": max_jobs}
+    batch = clustering.resolve(cluster, profile, loaded.sweep, flags, workers, scheduler)
+    if serial and (batch is not None or workers or scheduler):
+        raise typer.BadParameter("--serial simulates in this process: drop --workers, --scheduler and --cluster",
+                                 param_hint="--serial")
+    execution = Execution("shard", shard=(1, 1)) if serial else Execution.choose(workers=workers, scheduler=scheduler,
+                                                                                 cluster=batch)
+    if batch is not None:
+        clustering.announce(batch, loaded.store)
+    resume = shlex.join(["sweep", "fit", str(spec_path)] + clustering.resume_words(cluster, profile, flags))
 
     def on_round(p) -> None:
         tol = "inf" if p.tolerance == float("inf") else f"{p.tolerance:.4g}"
@@ -56,11 +73,11 @@ def fit(
         result = driver.run(loaded, execution, fresh=fresh, on_round=on_round)
     except KeyboardInterrupt:
         errors.print("interrupted; every finished batch task is recorded")
-        console.print(f"resume with: sweep fit {shown(spec_path)}", highlight=False)
+        console.print(f"resume with: {shown(resume)}", highlight=False)
         raise typer.Exit(EXIT_INTERRUPTED) from None
     except Incomplete as exc:
         errors.print(f"[yellow]stopped:[/] {shown(exc)}", highlight=False)
-        console.print(f"resume with: sweep fit {shown(spec_path)}", highlight=False)
+        console.print(f"resume with: {shown(resume)}", highlight=False)
         raise typer.Exit(EXIT_INTERRUPTED if exc.summary.stopped == "interrupted" else EXIT_STOPPED) from None
     paths = report.write(loaded, result)
     _show(result, paths)

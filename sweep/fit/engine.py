@@ -107,16 +107,20 @@ class SweepEvaluator:
 
 
 def _read(store: Path, fit: FitSpec, observed, species) -> tuple[np.ndarray, np.ndarray]:
-    """counts (points, replicates, component) at each component's time and species, and status."""
-    import sweep
+    """counts (points, replicates, component) at each component's time and species, and status.
 
-    ds = sweep.open_results(store)
+    Read with zarr, not xarray: through xarray's dask arrays, reading a batch's chunks back took
+    a quarter of a demo fit's wall time (13 of 46 s), three times zarr's own read of the same bytes.
+    """
+    import zarr
+
+    group = zarr.open_group(str(store), mode="r")
     times = list(fit.sweep.times)
     t_index = [times.index(c.time) for c in observed]
     s_index = [species.index(c.species) for c in observed]
-    counts = ds["counts"].values  # (point, replicate, time, species)
+    counts = group["counts"][...]  # (point, replicate, time, species)
     picked = counts[:, :, t_index, s_index].astype(np.float64)
-    return picked, ds["status"].values
+    return picked, group["status"][...]
 
 
 def _replace(path: Path, text: str) -> None:

@@ -141,3 +141,8 @@ def test_folder_of_another_fit_is_refused(tmp_path):
     spec.write_text(spec.read_text().replace("seed = 11", "seed = 12"), encoding="utf-8")
     result = runner.invoke(app, ["fit", str(spec), "--serial"])
     assert result.exit_code == 2 and "another spec" in " ".join(result.output.split()), result.output
+
+
+def test_serial_with_a_cluster_is_refused(tmp_path):
+    result = CliRunner().invoke(app, ["fit", str(_write(tmp_path)), "--serial", "--cluster", "slurm"])
+    assert result.exit_code == 2 and "--serial" in result.output, result.output
