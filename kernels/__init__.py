@@ -148,6 +148,24 @@ def suggest(n_reactions: int) -> str:
     return "direct" if n_reactions < SUGGEST_NRM_FROM else "nrm"
 
 
+def advice(method: str, n_reactions: int) -> str | None:
+    """A note when another exact method is expected to be much faster for a network this large.
+
+    Read by ``sweep check`` and ``sweep plan`` (here, so that ``check`` needs no planner).
+
+    Example
+    -------
+    >>> advice("direct", 10_000).startswith("method 'direct' on 10,000 reactions")
+    True
+    """
+    if method != "direct" or n_reactions < ADVISE_FROM:
+        return None
+    return (f"method 'direct' on {n_reactions:,} reactions: its reaction search costs time in proportion to "
+            "the number of reactions; method 'nrm' or 'cr' (composition-rejection) samples the same process "
+            "exactly at a cost per event that grows far less (8-9x faster at 1,000 reactions, 13-43x at "
+            "10,000 on the built-in networks; sweep bench --large)")
+
+
 def compiled(method: str, network: Network) -> bool:
     """Whether ``method``'s kernel for ``network`` is already compiled in numba's disk cache.
 
@@ -161,5 +179,5 @@ def compiled(method: str, network: Network) -> bool:
     return blocks.is_cached(method, network)
 
 
-__all__ = ["DETERMINISTIC", "METHODS", "OPTIONS", "KernelResult", "Method", "Network", "Trace", "compiled",
+__all__ = ["DETERMINISTIC", "METHODS", "OPTIONS", "KernelResult", "Method", "Network", "Trace", "advice", "compiled",
            "get", "record", "suggest"]

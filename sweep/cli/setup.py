@@ -10,7 +10,7 @@ import typer
 from rich.table import Table
 
 from sweep import load
-from sweep.cli.common import console, exits_on_errors, shown
+from sweep.cli.common import console, errors, exits_on_errors, shown
 from sweep.errors import SpecError
 from sweep.model import describe
 from sweep.execute.tasks import n_blocks
@@ -86,6 +86,16 @@ def check(
     if spec.adaptive is not None:
         console.print(f"adaptive: more replicates, up to {spec.adaptive.max_replicates:,} per point, until the "
                       f"{shown(spec.adaptive.description)}", highlight=False)
+    _advise(spec)
+
+
+def _advise(spec) -> None:
+    """Say when another exact method should be much faster for a network this large."""
+    import kernels
+
+    note = kernels.advice(spec.method, len(spec.model.reactions))
+    if note:
+        errors.print(f"[yellow]note:[/] {shown(note)}", highlight=False)
 
 
 def _conversions(spec) -> Table:

@@ -205,7 +205,7 @@ def plan(spec: Spec, workers: int, calibration_points: int = 256, seconds: float
 
 
 def method_advice(method: str, n_reactions: int) -> list[str]:
-    """A note when another exact method is expected to be much faster for a network this large.
+    """``kernels.advice`` as a list of warnings (empty when the method fits the network).
 
     Example
     -------
@@ -214,12 +214,8 @@ def method_advice(method: str, n_reactions: int) -> list[str]:
     """
     import kernels
 
-    if method != "direct" or n_reactions < kernels.ADVISE_FROM:
-        return []
-    return [f"method 'direct' on {n_reactions:,} reactions: its reaction search costs time in proportion to "
-            "the number of reactions; method 'nrm' or 'cr' (composition-rejection) samples the same process "
-            "exactly at a cost per event that grows far less (8-9x faster at 1,000 reactions, 13-43x at "
-            "10,000 on the built-in networks; sweep bench --large)"]
+    note = kernels.advice(method, n_reactions)
+    return [note] if note else []
 
 
 def _spread(n_points: int, k: int) -> list[int]:

@@ -55,6 +55,9 @@ def test_it_resumes_to_the_bytes_a_fresh_run_gives(legacy, tmp_path, scheduler, 
     old, new = zarr.open_group(legacy, mode="r"), zarr.open_group(fresh, mode="r")
     for name in ("counts", "status", "events", "done", "params", "time"):
         np.testing.assert_array_equal(old[name][:], new[name][:], err_msg=name)
+    # each store keeps the codec its metadata names: the old one's level 3 byte shuffle, today's bit shuffle
+    assert [c.shuffle.value for c in old["counts"].compressors if hasattr(c, "shuffle")] == ["shuffle"]
+    assert [c.shuffle.value for c in new["counts"].compressors if hasattr(c, "shuffle")] == ["bitshuffle"]
 
 
 def test_it_verifies_and_says_what_verify_can_check(legacy, monkeypatch):
