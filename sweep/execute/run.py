@@ -236,14 +236,15 @@ def input_builder(spec: Spec, points: np.ndarray) -> Callable[[list[Task]], Task
     times = np.asarray(spec.times)
     path = str(spec.store.resolve())
     ident = store.store_id(store.attributes(spec.store))
-    cache: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    cache: dict[int, tuple] = {}
 
-    def point_inputs(p: int) -> tuple[np.ndarray, np.ndarray]:
+    def point_inputs(p: int) -> tuple:
         if p not in cache:
             if len(cache) > 4096:
                 cache.clear()
             values = spec.values_at(points[p])
-            cache[p] = (rate_constants(spec.model, values), initial_counts(spec.model, values))
+            cache[p] = (rate_constants(spec.model, values), initial_counts(spec.model, values),
+                        point_schedule(spec, values))
         return cache[p]
 
     def make(tasks: list[Task]) -> TaskInput:
@@ -251,6 +252,15 @@ def input_builder(spec: Spec, points: np.ndarray) -> Callable[[list[Task]], Task
         return TaskInput(path, spec.method, network, times, spec.seed, spec.max_events, blocks, spec.options, ident)
 
     return make
+
+
+def point_schedule(spec: Spec, values: dict[str, float]):
+    """The point's interventions as a ``kernels.changes.Schedule``, or None without any."""
+    if not spec.interventions:
+        return None
+    from sweep.model import schedule
+
+    return schedule.build(spec.model, spec.interventions, spec.derived, values, spec.times[-1])
 
 
 def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[TaskInput]:

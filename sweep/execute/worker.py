@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 import kernels
+from kernels.changes import Schedule
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
 from sweep.store.chunks import group_commit
@@ -31,6 +32,9 @@ class BlockInput:
     stop: int
     rates: np.ndarray
     x0: np.ndarray
+    # the point's interventions (kernels.changes.Schedule, built by sweep.model.schedule); None
+    # without any, and then the kernels are called exactly as before (the same bytes)
+    changes: Schedule | None = None
 
 
 @dataclass(frozen=True)
@@ -87,7 +91,8 @@ def _run_blocks(task: TaskInput, kernel, options: dict, done: list) -> float:
         started = time.perf_counter()
         # SeedSequence(root, spawn_key=(point, r)) for each replicate, computed compiled (kernels.seeding)
         result = kernel.simulate(task.network, b.rates, b.x0, task.times, Streams(task.root_seed, b.point, b.start,
-                                                                                  b.stop), task.max_events, **options)
+                                                                                  b.stop), task.max_events,
+                                 **with_changes(options, b.changes))
         in_kernel += time.perf_counter() - started
         sums = store.write_block(task.store, b.point, b.start, b.stop, result, task.store_id)
         done.append(BlockResult(b.point, b.block, int(result.events.sum()),
@@ -104,4 +109,10 @@ def warm_up(task: TaskInput) -> None:
     """
     b = task.blocks[0]
     kernels.get(task.method).simulate(task.network, b.rates, b.x0, task.times, [np.random.SeedSequence(0)], 1,
-                                      **dict(task.options))
+                                      **with_changes(dict(task.options), b.changes))
+
+
+def with_changes(options: dict, changes: Schedule | None) -> dict:
+    """The kernel's keyword arguments: ``changes`` only when there are interventions, so a sweep
+    without them calls every kernel exactly as before."""
+    return options if changes is None else {**options, "changes": changes}

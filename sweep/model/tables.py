@@ -31,7 +31,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from kernels.network import Network
-from sweep.model import expr, ratelaws
+from sweep.model import changes as interventions_, expr, ratelaws
 from sweep.spec import limits
 from sweep.errors import SpecError
 
@@ -77,6 +77,8 @@ class Model:
     reactions: tuple[Reaction, ...]
     constants: str = "molecules"
     volume: float | None = None
+    # [[change]] and [[when]] (sweep.model.changes): interventions during a run, in the order written
+    interventions: tuple[interventions_.Intervention, ...] = ()
 
     @property
     def omega(self) -> float | None:
@@ -152,7 +154,7 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     SpecError
         Naming the file, the field and the fix.
     """
-    _check_keys(table, {"species", "parameters", "reactions", "units"}, source, prefix.rstrip("."))
+    _check_keys(table, {"species", "parameters", "reactions", "units", "change", "when"}, source, prefix.rstrip("."))
     species_t = _table(table, "species", source, prefix, required=True)
     params_t = _table(table, "parameters", source, prefix, required=False)
     reactions_t = _table(table, "reactions", source, prefix, required=True)
@@ -186,7 +188,8 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
         raise SpecError(source, f"{prefix}reactions", "the model has no reactions",
                         fix="add at least one, e.g. decay = { reaction = \"A -> 0\", rate = 0.1 }")
     _check_parameter_uses(dict(parameters), reactions, initial, source, prefix)
-    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume)
+    listed = interventions_.parse_lists(table, species, param_names, source, prefix)
+    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume, listed)
     _check_dependencies(model, source, prefix)
     return model
 

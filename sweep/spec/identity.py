@@ -24,6 +24,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from sweep.model import changes
+
 if TYPE_CHECKING:
     from sweep.spec import Spec
 
@@ -44,7 +46,7 @@ def of(spec: Spec, points: np.ndarray) -> dict[str, Any]:
     index = {name: i for i, name in enumerate(model.species)}
     times = np.ascontiguousarray(spec.times, dtype=np.float64)
     points = np.ascontiguousarray(points, dtype=np.float64)
-    return {
+    found = {
         "format": FORMAT,
         "method": spec.method,
         "options": {k: v for k, v in sorted(spec.options)},
@@ -63,6 +65,9 @@ def of(spec: Spec, points: np.ndarray) -> dict[str, Any]:
         "points": {"count": int(points.shape[0]), "sha256": _sha(points)},
         "values": _values(spec, points),
     }
+    if spec.interventions:  # only when there are any: the fingerprints of older stores stay as they were
+        found["interventions"] = changes.describe(spec.interventions)
+    return found
 
 
 def digest(identity: dict[str, Any]) -> str:
@@ -95,6 +100,8 @@ def differences(old: dict[str, Any], new: dict[str, Any]) -> list[str]:
         out.append(f"design points: {_count(old.get('points'))} -> {_count(new.get('points'))} points"
                    if _count(old.get("points")) != _count(new.get("points"))
                    else "design points: the same number of points, at other parameter values or in another order")
+    if old.get("interventions") != new.get("interventions"):
+        out += _interventions(old.get("interventions") or [], new.get("interventions") or [])
     old_values, new_values = old.get("values", {}), new.get("values", {})
     for name in sorted(set(old_values) | set(new_values)):
         a, b = old_values.get(name), new_values.get(name)
@@ -155,6 +162,7 @@ def _values(spec: Spec, points: np.ndarray) -> dict[str, Any]:
     used = {r.rate for r in model.reactions if isinstance(r.rate, str)}
     used |= {v for v in model.initial if isinstance(v, str)}
     used |= set(model.law_parameters)
+    used |= changes.referenced(spec.interventions)
     columns = spec.columns(points)
     out: dict[str, Any] = {}
     for name in sorted(used):
@@ -165,6 +173,19 @@ def _values(spec: Spec, points: np.ndarray) -> dict[str, Any]:
         else:
             out[name] = {"sha256": _sha(column)}
     return out
+
+
+def _interventions(old: list[dict], new: list[dict]) -> list[str]:
+    """Each [[change]]/[[when]] (model's first, then the spec's) that was added, removed or edited."""
+    if len(old) != len(new):
+        return [f"interventions ([[change]], [[when]]): {len(old)} -> {len(new)}"]
+    out = []
+    for i, (a, b) in enumerate(zip(old, new)):
+        kind = "change" if "at" in b else "when"
+        for key in sorted(set(a) | set(b)):
+            if a.get(key) != b.get(key):
+                out.append(f"intervention {i} ([[{kind}]]) {key}: {_show(a.get(key))} -> {_show(b.get(key))}")
+    return out[:_SHOWN]
 
 
 def _sha(array: np.ndarray) -> str:

@@ -56,7 +56,7 @@ from sweep.spec import adaptive as adaptives
 from sweep.batch import settings as clusters
 from sweep import design as designs
 from sweep.spec import diff as specdiff
-from sweep.model import expr as expressions
+from sweep.model import changes as interventions, expr as expressions
 from sweep.spec import imports as model_files
 from sweep.spec import inputs, limits
 from sweep.model import sbml
@@ -68,7 +68,8 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "model_volume", "run", "time", "parameters", "design", "derived", "cluster", "plot"}
+_TOP_KEYS = {"model", "model_volume", "run", "time", "parameters", "design", "derived", "cluster", "plot", "change",
+             "when"}
 _PLOT_KEYS = {"species"}
 _RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options", "adaptive"}
 
@@ -105,11 +106,21 @@ class Spec:
     plot_species: str | None = None
     observables: tuple[tuple[str, str], ...] = ()  # SBML assignment rules that read species (name, expression)
     time_unit: str = ""                              # [time] unit, else the SBML model's timeUnits
+    # the model's [[change]]/[[when]] lists, then the spec's (sweep.model.changes; built per point by
+    # sweep.model.schedule)
+    interventions: tuple[interventions.Intervention, ...] = ()
 
     @property
     def store_replicates(self) -> int:
         """Replicates per point the store holds: ``replicates``, or ``[run.adaptive]``'s maximum."""
         return self.adaptive.max_replicates if self.adaptive is not None else self.replicates
+
+    @property
+    def intervention_notes(self) -> list[tuple[str, str]]:
+        """Timed changes after the end (dropped), for ``sweep check`` (``sweep.model.schedule.notes``)."""
+        from sweep.model import schedule
+        points = self._points
+        return schedule.notes(self.interventions, self.columns(points), points.shape[0], self.times[-1])
 
     @property
     def content_sha256(self) -> str:
@@ -284,7 +295,9 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
                 model_notes=imported.notes if imported is not None else (),
                 observables=imported.observables if imported is not None else (), time_unit=time_unit,
                 cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()),
-                plot_species=_plot_species(_sub(doc, "plot", src), model, src))
+                plot_species=_plot_species(_sub(doc, "plot", src), model, src),
+                interventions=model.interventions + interventions.parse_lists(
+                    doc, model.species, model.parameter_values, src))
     check_points(spec, src, _model_source(doc, path))
     return spec
 
