@@ -286,7 +286,7 @@ def segments(run_segment: Segment, s: Schedule, x0: np.ndarray, rates: np.ndarra
             t_stop = float(watch[5][0])
             got = int(np.searchsorted(seg, t_stop, side="left"))  # samples before the stopping event
             row[k:k + min(got, k2 - k)] = out[:min(got, k2 - k)]
-            x = out[got].copy()
+            x = out[got].astype(x0.dtype)
             k += min(got, k2 - k)
             t = t + t_stop
             if t >= t_next:  # the stop fell on the change instant (never before it in exact arithmetic)
@@ -299,5 +299,5 @@ def segments(run_segment: Segment, s: Schedule, x0: np.ndarray, rates: np.ndarra
             return status, events, aux
         if t_next == np.inf:
             return 0, events, aux
-        x = out[n_real].copy()
+        x = out[n_real].astype(x0.dtype)
         t, k = t_next, k2
