@@ -366,3 +366,9 @@ def test_sbml_with_events_and_an_assignment_rule_gives_the_bytes_of_the_same_tom
         np.testing.assert_array_equal(stores[0][array][:], stores[1][array][:], err_msg=array)
     counts = stores[0]["counts"][:]
     assert (counts[:, :, 4:, 1] == 1000).all() and (counts[:, :, :4, 1] == 5).all()
+
+
+def test_export_of_a_model_with_interventions_is_refused():
+    spec = _spec(CHANGED)
+    with pytest.raises(SpecError, match=r"change\[0\].*cannot be exported"):
+        sbml.write(spec.model)
