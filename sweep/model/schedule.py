@@ -72,6 +72,19 @@ def build(model: Model, listed: Sequence[Intervention], derived: Derived, values
 
 def _readers(model: Model, derived: Derived) -> dict[str, list[int]]:
     """For each parameter, the entries of the rate vector that read it (through derived ones too)."""
+    deps = _depends(derived)
+    names = [r.rate if isinstance(r.rate, str) and r.propensity is None else None for r in model.reactions]
+    names += list(model.law_parameters)
+    out: dict[str, list[int]] = {}
+    for e, name in enumerate(names):
+        if name is not None:
+            for p in deps(name):
+                out.setdefault(p, []).append(e)
+    return out
+
+
+def _depends(derived: Derived):
+    """name -> the parameters its value depends on (itself, and through derived ones)."""
     formulas = dict(derived)
     memo: dict[str, frozenset[str]] = {}
 
@@ -85,14 +98,7 @@ def _readers(model: Model, derived: Derived) -> dict[str, list[int]]:
             memo[name] = frozenset(found)
         return memo[name]
 
-    names = [r.rate if isinstance(r.rate, str) and r.propensity is None else None for r in model.reactions]
-    names += list(model.law_parameters)
-    out: dict[str, list[int]] = {}
-    for e, name in enumerate(names):
-        if name is not None:
-            for p in deps(name):
-                out.setdefault(p, []).append(e)
-    return out
+    return deps
 
 
 def _instants(listed: Sequence[Intervention], values: Mapping[str, float], end: float) -> list[tuple[float, Change]]:
@@ -123,13 +129,14 @@ def _operations(steps: Sequence[Step], item: Intervention, current: dict[str, fl
                 derived: Derived, index: Mapping[str, int], readers: Mapping[str, list[int]]) -> list[kc.Operation]:
     """The kernel operations of one occurrence; ``current`` carries parameter sets forward in time."""
     ops: list[kc.Operation] = []
+    before = dict(current)  # every value is read as it was just before the change (SBML's rule too)
     for step in steps:
         if step.target in index:
             lo, hi = (0.0, 1.0) if step.kind == "keep" else (0.0, None)
-            v = _resolve(step.value, current, item, step.field, lo, hi, whole=step.kind != "keep")
+            v = _resolve(step.value, before, item, step.field, lo, hi, whole=step.kind != "keep")
             ops.append((_CODES[step.kind], index[step.target], v))
             continue
-        current[step.target] = _resolve(step.value, current, item, step.field, None, None)
+        current[step.target] = _resolve(step.value, before, item, step.field, None, None)
         for name, formula in derived:
             current[name] = float(expressions.evaluate(formula, current))
         rates = rate_constants(model, current)
@@ -178,6 +185,7 @@ def check(model: Model, listed: Sequence[Intervention], derived: Derived, column
                 raise SpecError(item.source, step.field, f"no reaction rate or law reads {step.target}, so setting "
                                 "it changes nothing", fix="set a parameter a reaction reads, or a species")
     _check_conflicts(listed, readers)
+    _check_trigger_values(listed, derived)
     found = notes(listed, columns, n_points, end)
     names = sorted(referenced(tuple(listed)) | {p for item in listed for s in item.steps for p in [s.target]
                                                 if p in readers})
@@ -213,6 +221,23 @@ def _check_conflicts(listed: Sequence[Intervention], readers: Mapping[str, list[
                                 f"{others}, which another change sets; this change fires at a time known only "
                                 "during the run, so the entry's new value cannot be computed beforehand",
                                 fix=f"set {p} and {others} in the same changes, or split the rate")
+
+
+def _check_trigger_values(listed: Sequence[Intervention], derived: Derived) -> None:
+    """A triggered change's values are read at the point's values before the run; refuse one that
+    depends on a parameter some change sets (its value at the firing is known only during the run)."""
+    deps = _depends(derived)
+    changed = {s.target for item in listed for s in item.steps if s.kind == "set"}
+    for item in listed:
+        if not isinstance(item, Trigger):
+            continue
+        fields = [(s.field, s.value) for s in item.steps] + [(f"{item.field}.condition", item.threshold)]
+        for field, value in fields:
+            moved = sorted(deps(value) & changed) if isinstance(value, str) else []
+            if moved:
+                raise SpecError(item.source, field, f"{value} depends on {', '.join(moved)}, which a change sets; "
+                                "a triggered change fires at a time known only during the run",
+                                fix="give a number, or a parameter no change sets")
 
 
 def notes(listed: Sequence[Intervention], columns: Mapping[str, Any], n_points: int,

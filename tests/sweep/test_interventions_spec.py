@@ -372,3 +372,25 @@ def test_export_of_a_model_with_interventions_is_refused():
     spec = _spec(CHANGED)
     with pytest.raises(SpecError, match=r"change\[0\].*cannot be exported"):
         sbml.write(spec.model)
+
+
+def test_sbml_times_and_values_computed_from_parameters_become_derived_parameters():
+    imported = sbml.read(_sbml(_event("later", f"<apply><geq/>{TIME}<apply><plus/><ci>t_on</ci><ci>g</ci></apply>"
+                                      "</apply>", {"k": "<apply><times/><cn>3</cn><ci>g</ci></apply>"})), "ev.xml")
+    derived = dict(imported.derived)
+    assert imported.table["change"] == [{"at": "later__at", "set": {"k": "later__k__value"}}]
+    assert derived["later__at"] == "t_on + g" and derived["later__k__value"] == "3 * g"
+
+
+def test_values_are_read_as_they_were_just_before_the_change():
+    """SBML L3V2 4.14: every assignment is computed before any is made; ours reads the same way."""
+    model = MODEL.replace("f = 0.5", "f = 0.5\nthree_g = 0.3")
+    spec = _spec('[derived]\nthree_g = "3 * g"\n[[change]]\nat = 1.0\nset = { g = 5.0, k = "three_g" }',
+                 model=model)
+    s = _schedule(spec)
+    assert dict(zip(s.target.tolist(), s.value.tolist())) == {1: 5.0, 0: pytest.approx(0.3)}
+
+
+def test_a_triggered_value_that_depends_on_a_set_parameter_is_refused():
+    with pytest.raises(SpecError, match=r"when\[0\].set.k.*depends on g"):
+        _spec('[[change]]\nat = 1.0\nset = { g = 0.5 }\n[[when]]\ncondition = "A >= 3"\nset = { k = "g" }')

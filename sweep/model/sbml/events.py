@@ -2,8 +2,8 @@
 
 Accepted, because our semantics are then exactly SBML's:
 
-- a trigger ``time >= t0`` (or ``>``, ``t0 <= time``, ``geq(time, t0)``) with t0 a number or a
-  parameter: a timed change at t0 (time only grows, so it fires once);
+- a trigger ``time >= t0`` (or ``>``, ``t0 <= time``, ``geq(time, t0)``) with t0 a number, a
+  parameter or math over parameters (then a derived parameter ``<event>__at``): a timed change at t0 (time only grows, so it fires once);
 - a trigger comparing one species with a number or a parameter (``>= > <= <``): a state-triggered
   change that fires each time the comparison becomes true (SBML fires on every false -> true
   transition; ``repeat = true`` re-arms the same way), the threshold converted to molecules with
@@ -26,8 +26,8 @@ from __future__ import annotations
 from typing import Any
 
 from sweep.model import expr as expressions
-from sweep.model.sbml import rules
-from sweep.model.sbml.math import TIME, from_ast
+from sweep.model.sbml import laws, rules
+from sweep.model.sbml.math import TIME, from_ast, render
 
 _FLIP = {"ge": "le", "gt": "lt", "le": "ge", "lt": "gt"}
 _OPS = {"ge": ">=", "gt": ">", "le": "<=", "lt": "<"}
@@ -90,7 +90,7 @@ def _trigger(ctx, tree, where: str, eid: str) -> dict | None:
     op, (a, b) = tree[1], tree[2]
     if a[0] != "name" or a[1] not in ctx.species and a[1] != TIME:
         op, a, b = _FLIP[op], b, a
-    value = _constant(ctx, b)
+    value = _constant(ctx, b, f"{eid}__at" if a == ("name", TIME) else f"{eid}__level")
     if a[0] != "name" or value is None:
         ctx.problems.append(f"{where}: trigger compares more than one time or species symbol ({fix})")
         return None
@@ -108,15 +108,24 @@ def _trigger(ctx, tree, where: str, eid: str) -> dict | None:
     return {"condition": f"{a[1]} {_OPS[op]} {threshold}", "repeat": True}
 
 
-def _constant(ctx, node) -> float | str | None:
-    """A number or a parameter id (a parameter whose value the import knows); None otherwise."""
+def _constant(ctx, node, name: str) -> float | str | None:
+    """A number, a parameter id, or math over parameters and numbers only (then the derived
+    parameter ``name``, computed at every point); None for math that reads the state or the time."""
     if node[0] == "num":
         return float(node[1])
     if node[0] == "neg" and node[1][0] == "num":
         return -float(node[1][1])
-    if node[0] == "name" and node[1] in ctx.values and node[1] != TIME:
+    read = laws.names(node)
+    if not read:  # numbers only
+        return float(expressions.evaluate(expressions.parse(render(node), ctx.source, name), {}))
+    if any(n not in ctx.values or n == TIME or n in ctx.species for n in read):
+        return None
+    if node[0] == "name":
         return node[1]
-    return None
+    fresh = ctx.fresh(name)
+    ctx.derived[fresh] = text = render(node)
+    ctx.values[fresh] = float(expressions.evaluate(expressions.parse(text, ctx.source, fresh), ctx.values))
+    return fresh
 
 
 def _scaled(ctx, value: float | str, beta: float, name: str, rounded: bool) -> float | str:
@@ -142,7 +151,7 @@ def _assignments(ctx, event, eid: str, where: str, initial_derived: set) -> dict
         v = a.getVariable()
         tree = from_ast(a.getMath(), {}, ctx.functions, ctx.problems, f"{where} assignment to {v}")
         tree = rules.inline(ctx, tree, f"{where} assignment to {v}") if tree is not None else None
-        value = _constant(ctx, tree) if tree is not None else None
+        value = _constant(ctx, tree, f"{eid}__{v}__value") if tree is not None else None
         if value is None:
             ctx.problems.append(f"{where}: assignment to {v} is not a number or a parameter (math that reads "
                                 "the state or the time is not supported)")
