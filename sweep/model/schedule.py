@@ -113,7 +113,8 @@ def _instants(listed: Sequence[Intervention], values: Mapping[str, float], end: 
         n = 1
         if item.every is not None:
             every = _resolve(item.every, values, item, f"{item.field}.every", 0.0, None, strict=True)
-            n = math.floor((end - at) / every) + 1
+            span = (end - at) / every  # may overflow to inf for a tiny period: refused just below
+            n = math.floor(span) + 1 if span <= limits.MAX_INSTANTS else limits.MAX_INSTANTS + 1
             if item.count is not None:
                 n = min(n, int(_resolve(item.count, values, item, f"{item.field}.count", 1.0, None, whole=True)))
         if len(out) + n > limits.MAX_INSTANTS:

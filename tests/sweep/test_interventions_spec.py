@@ -84,6 +84,7 @@ REFUSED = [
     ("[design.vary]\nt_on = [1.0, -2.0]\n[[change]]\nat = \"t_on\"\nadd = { B = 1 }", "change[0].at", "t_on = -2"),
     ("[design.vary]\nf = [0.5, 2.0]\n[[change]]\nat = 1.0\nkeep = \"f\"", "change[0].keep.A", "f = 2"),
     ("[[change]]\nat = 0.0\nevery = 1e-5\nadd = { B = 1 }", "change[0]", "more than 100,000"),
+    ("[[change]]\nat = 0.0\nevery = 1e-320\nadd = { B = 1 }", "change[0]", "more than 100,000"),
     ("[[change]]\nat = 1.0\nset = { k = -1.0 }", "change[0].set.k", ">= 0"),
 ]
 
