@@ -37,6 +37,7 @@ REASONS = (
     (r"event .*: trigger", "event triggers of another form"),
     (r"event .*: (assign|only species)", "event assignments of another form"),
     (r"changes nothing|rate entry .* reads", "event sets a parameter no rate reads, or shares a rate"),
+    (r"event .* reads .*rule", "event reads a variable of a refused rule"),
     (r"\bevent\b", "events"),
     (r"rate rule", "rate rules"),
     (r"algebraic rule", "algebraic rules"),
