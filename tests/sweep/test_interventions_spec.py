@@ -395,3 +395,11 @@ def test_values_are_read_as_they_were_just_before_the_change():
 def test_a_triggered_value_that_depends_on_a_set_parameter_is_refused():
     with pytest.raises(SpecError, match=r"when\[0\].set.k.*depends on g"):
         _spec('[[change]]\nat = 1.0\nset = { g = 0.5 }\n[[when]]\ncondition = "A >= 3"\nset = { k = "g" }')
+
+
+def test_sbml_persistent_and_use_values_from_trigger_time_either_way_without_a_delay():
+    """Without a delay both attributes change nothing (L3V2 4.14.2, 4.14.4): each value is accepted."""
+    event = _event("e", f"<apply><geq/>{TIME}<cn>2</cn></apply>", {"B": "<cn>7</cn>"})
+    event = event.replace('persistent="true"', 'persistent="false"').replace(
+        'useValuesFromTriggerTime="true"', 'useValuesFromTriggerTime="false"')
+    assert _imported(event)["change"] == [{"at": 2.0, "set": {"B": 7.0}}]
