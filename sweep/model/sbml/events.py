@@ -72,8 +72,8 @@ def _event(ctx, event, eid: str, where: str, n_events: int, initial: dict, initi
         ctx.notes.append((where, "assigns nothing: dropped"))
         return None
     entry.update(steps)
-    ctx.notes.append((where, f"{'timed change at ' + str(entry['at']) if 'at' in entry else 'when ' + entry['condition']}"
-                      f": {', '.join(f'{k} {v}' for k, v in steps.items())}"))
+    what = f"timed change at {entry['at']}" if "at" in entry else f"when {entry['condition']} (each time)"
+    ctx.notes.append((where, f"{what}: " + ", ".join(f"{k} {v}" for k, v in steps.items())))
     return entry
 
 
