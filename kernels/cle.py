@@ -57,12 +57,14 @@ import numba
 import numpy as np
 
 from kernels import METHODS, blocks
-from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+from kernels.changes import watch_hit
+from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, KernelResult, Network
 from kernels.propensity import law_value
 from kernels.rng import next_words, seed_states, to_unit
 
 if TYPE_CHECKING:
     from kernels.blocks import Seeds
+    from kernels.changes import Schedule
 
 # the registry's dtype, as the attribute sweep.store and sweep.plan read until they read the record
 COUNTS_DTYPE = METHODS["cle"].counts_dtype
@@ -161,8 +163,11 @@ def _step(reactant_idx, reactant_mult, change_idx, change_val, scaled, x, a, h, 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law, x0, times,
-             dt, state, max_events, out, x, a):
+             dt, state, max_events, out, x, a, w_species, w_op, w_value, w_repeat, armed, stop):
     """Simulate one replicate into ``out`` (T, S); return (status, steps, clips).
+
+    ``w_species`` ... ``stop``: the state-triggered events, as in ``kernels.direct._run_one``, checked
+    after every step.
 
     ``x`` (S,) and ``a`` (R,) are scratch; compiled without reference counting for the reason given
     in ``kernels.direct._run_one``.
@@ -187,7 +192,7 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
         if span > 0.0 and not absorbed:
             n_steps = max(1, int(np.ceil(span / dt * _CEIL_SLACK)))
         h = span / n_steps if n_steps > 0 else 0.0
-        for _ in range(n_steps):
+        for i_step in range(n_steps):
             a0 = 0.0
             for j in range(n_r):
                 if law is not None and law_mask[j]:
@@ -216,6 +221,10 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
                     clips += 1
             if status != 0:
                 break
+            if w_species.shape[0] > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+                status = STATUS_STOPPED
+                stop[0] = t + (i_step + 1) * h
+                break
         if status != 0:
             break
         t = times[k]
@@ -227,7 +236,7 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
         k = 0
     while k < n_t:
         for s in range(n_s):
-            out[k, s] = -1.0
+            out[k, s] = x[s] if status == STATUS_STOPPED else -1.0
         k += 1
     return status, n_ev, clips
 
@@ -235,12 +244,14 @@ def _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_ma
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]``, its clips into ``aux[i]`` (no logs)."""
-    reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, dt = model
+    reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, dt, watch = model
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
     x = np.empty_like(x0)
     a = np.empty(scaled.shape[0])
     for i in range(states.shape[0]):
         st, ev, cl = _run_one(reactant_idx, reactant_mult, change_idx, change_val, scaled, law_mask, rates, law,
-                              x0, times, dt, states[i], max_events, counts[i], x, a)
+                              x0, times, dt, states[i], max_events, counts[i], x, a, w_species, w_op, w_value,
+                              w_repeat, armed, stop)
         status[i] = st
         events[i] = ev
         aux[i] = cl
@@ -281,7 +292,8 @@ def default_dt(times: np.ndarray) -> float:
 
 
 def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-                        seeds: Seeds, max_events: int, *, dt: float | None = None) -> tuple[KernelResult, np.ndarray]:
+                        seeds: Seeds, max_events: int, changes: Schedule | None = None, *,
+                        dt: float | None = None) -> tuple[KernelResult, np.ndarray]:
     """``simulate``, plus the number of negative components clipped to 0 per replicate (int64 (n,)).
 
     Raises
@@ -289,11 +301,12 @@ def simulate_with_clips(network: Network, rates: np.ndarray, x0: np.ndarray, tim
     ValueError
         If ``dt`` is given and is not a finite number > 0.
     """
-    return blocks.run("cle", network, rates, x0, times, seeds, max_events, dt=dt)
+    return blocks.run("cle", network, rates, x0, times, seeds, max_events, changes=changes, dt=dt)
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Seeds, max_events: int, *, dt: float | None = None) -> KernelResult:
+             seeds: Seeds, max_events: int, changes: Schedule | None = None, *,
+             dt: float | None = None) -> KernelResult:
     """Simulate one chemical Langevin path per seed (Euler–Maruyama, Gillespie 2000).
 
     Parameters
@@ -323,7 +336,7 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([100.0, 0.1]), np.array([1000]), np.linspace(0, 60, 61),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000)
     """
-    return simulate_with_clips(network, rates, x0, times, seeds, max_events, dt=dt)[0]
+    return simulate_with_clips(network, rates, x0, times, seeds, max_events, changes, dt=dt)[0]
 
 
 def normal_draws(seed: np.random.SeedSequence, n: int) -> np.ndarray:

@@ -48,12 +48,14 @@ import numba
 import numpy as np
 
 from kernels import blocks
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace
+from kernels.changes import watch_hit
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, Trace
 from kernels.propensity import _U1, _U2, _U3, _U4, bits_float, float_bits, program, propensity
 from kernels.rng import next_words, to_open0, to_unit
 
 if TYPE_CHECKING:
     from kernels.blocks import Seeds
+    from kernels.changes import Schedule
 
 WINDOW = 64  # exponents resolved by the groups (slots 1..WINDOW)
 HEADROOM = 10  # exponents of room above the largest propensity when the layout is built
@@ -166,7 +168,7 @@ def _resum(ga, start, gsum):
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x,
-             x, a, order, where, ga, start, gsum, fill):
+             x, a, order, where, ga, start, gsum, fill, w_species, w_op, w_value, w_repeat, armed, stop):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
     ``state`` (uint64[4]) is this replicate's generator, advanced in place; the ``log_*`` arrays are
@@ -179,6 +181,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     """
     n_s = x0.shape[0]
     n_t = times.shape[0]
+    n_w = w_species.shape[0]
     log_cap = log_t.shape[0] if log_t is not None else 0
     s0 = state[0]
     s1 = state[1]
@@ -315,6 +318,10 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         since += 1
         if status != 0:
             break
+        if n_w > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+            status = STATUS_STOPPED
+            stop[0] = t
+            break
         if rebuild:
             lo, hi, top = _layout(a, order, where, ga, start, gsum, fill)
             a0 = _resum(ga, start, gsum)
@@ -330,7 +337,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         k = 0
     while k < n_t:
         for s in range(n_s):
-            out[k, s] = -1 if status != 0 else x[s]
+            out[k, s] = x[s] if status == 0 or status == STATUS_STOPPED else -1
         k += 1
     return status, n_ev
 
@@ -338,7 +345,8 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol)."""
-    prog, n_r = model
+    prog, n_r, watch = model
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
     x = np.empty_like(x0)
     a = np.empty(n_r)
     order = np.empty(n_r, np.int64)
@@ -349,7 +357,8 @@ def run(model, rates, law, x0, times, states, max_events, counts, status, events
     fill = np.empty(WINDOW + 1, np.int64)
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
-                          log_x, x, a, order, where, ga, start, gsum, fill)
+                          log_x, x, a, order, where, ga, start, gsum, fill, w_species, w_op, w_value, w_repeat,
+                          armed, stop)
         status[i] = st
         events[i] = ev
 
@@ -364,7 +373,7 @@ def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarr
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Seeds, max_events: int) -> KernelResult:
+             seeds: Seeds, max_events: int, changes: Schedule | None = None) -> KernelResult:
     """Simulate one replicate per seed by composition-rejection (Slepoy, Thompson & Plimpton 2008).
 
     Parameters
@@ -392,10 +401,10 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1.0]), np.array([10]), np.linspace(0, 5, 6),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000)
     """
-    return blocks.simulate("cr", network, rates, x0, times, seeds, max_events)
+    return blocks.simulate("cr", network, rates, x0, times, seeds, max_events, changes)
 
 
 def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-          seed: np.random.SeedSequence, max_events: int) -> Trace:
+          seed: np.random.SeedSequence, max_events: int, changes: Schedule | None = None) -> Trace:
     """Recompute one replicate with its full event log (the same stream as ``simulate``)."""
-    return blocks.trace("cr", network, rates, x0, times, seed, max_events)
+    return blocks.trace("cr", network, rates, x0, times, seed, max_events, changes)

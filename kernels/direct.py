@@ -22,12 +22,14 @@ import numba
 import numpy as np
 
 from kernels import blocks
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace
+from kernels.changes import watch_hit
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, Trace
 from kernels.propensity import _U0, _U1, _U2, _U3, _U4, program, propensity
 from kernels.rng import next_words, to_open0, to_unit
 
 if TYPE_CHECKING:
     from kernels.blocks import Seeds
+    from kernels.changes import Schedule
 
 _INT32_MAX = 2**31 - 1
 _INF = np.inf
@@ -35,8 +37,14 @@ _RESUM_MASK = 1023  # a0 is re-summed when the event count is a multiple of 1024
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
-def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x, x, a):
+def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x, x, a,
+             w_species, w_op, w_value, w_repeat, armed, stop):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
+
+    The ``w_*`` arrays, ``armed`` and ``stop`` are the state-triggered events (``kernels.changes``):
+    empty for a run without them; else the loop stops right after the event that makes an armed
+    condition true, with status ``STATUS_STOPPED``, its time in ``stop[0]`` and the state there in
+    every later sample.
 
     ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. The ``log_*``
     arrays are None (numba then compiles the logging away) or receive event times, reactions and
@@ -50,6 +58,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     """
     n_s = x0.shape[0]
     n_t = times.shape[0]
+    n_w = w_species.shape[0]
     log_cap = log_t.shape[0] if log_t is not None else 0
     # the generator lives in locals for the whole run and is written back once at the end
     s0 = state[0]
@@ -142,6 +151,10 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         n_ev += 1
         if status != 0:
             break
+        if n_w > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+            status = STATUS_STOPPED
+            stop[0] = t
+            break
         if (n_ev & _RESUM_MASK) == 0:
             # bound the rounding drift of the incremental a0
             a0 = 0.0
@@ -151,12 +164,12 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     state[1] = s1
     state[2] = s2
     state[3] = s3
-    fill = -1 if status != 0 else 0
+    held = status == 0 or status == STATUS_STOPPED  # later samples hold the state; else they are unknown
     if status == STATUS_NUMERICAL:
         k = 0
     while k < n_t:
         for s in range(n_s):
-            out[k, s] = fill if status != 0 else x[s]
+            out[k, s] = x[s] if held else -1
         k += 1
     return status, n_ev
 
@@ -164,12 +177,13 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol)."""
-    prog, n_r = model
+    prog, n_r, watch = model
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
     x = np.empty_like(x0)
     a = np.empty(n_r + 1)
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
-                          log_x, x, a)
+                          log_x, x, a, w_species, w_op, w_value, w_repeat, armed, stop)
         status[i] = st
         events[i] = ev
 
@@ -184,7 +198,7 @@ def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarr
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Seeds, max_events: int) -> KernelResult:
+             seeds: Seeds, max_events: int, changes: Schedule | None = None) -> KernelResult:
     """Simulate one replicate per seed with the direct method.
 
     Parameters
@@ -213,14 +227,14 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1.0]), np.array([10]), np.linspace(0, 5, 6),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000)
     """
-    return blocks.simulate("direct", network, rates, x0, times, seeds, max_events)
+    return blocks.simulate("direct", network, rates, x0, times, seeds, max_events, changes)
 
 
 def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-          seed: np.random.SeedSequence, max_events: int) -> Trace:
+          seed: np.random.SeedSequence, max_events: int, changes: Schedule | None = None) -> Trace:
     """Recompute one replicate with its full event log.
 
     Consumes the random stream exactly as ``simulate`` does, so ``result`` equals the
     replicate's row of ``simulate`` bit for bit.
     """
-    return blocks.trace("direct", network, rates, x0, times, seed, max_events)
+    return blocks.trace("direct", network, rates, x0, times, seed, max_events, changes)

@@ -97,3 +97,6 @@ class Trace(NamedTuple):
 STATUS_FINISHED = 0
 STATUS_EVENT_CAP = 1
 STATUS_NUMERICAL = 2
+# internal to a run with state-triggered events (``kernels.changes``): the loop stopped right after
+# the event or step that made an armed condition true; never stored
+STATUS_STOPPED = 3

@@ -44,12 +44,14 @@ import numba
 import numpy as np
 
 from kernels import blocks
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, Trace
+from kernels.changes import watch_hit
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, Trace
 from kernels.propensity import bits_float as _float, float_bits as _bits, program, propensity
 from kernels.rng import next_words, to_open0, to_unit
 
 if TYPE_CHECKING:
     from kernels.blocks import Seeds
+    from kernels.changes import Schedule
 
 _INT32_MAX = 2**31 - 1
 _INF = np.inf
@@ -195,7 +197,7 @@ def _update(ht, hr, pos, r, key):
 
 @numba.njit(cache=True, nogil=True, error_model="numpy", _nrt=False)
 def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, log_r, log_x,
-             x, a, unused, ht, hr, pos):
+             x, a, unused, ht, hr, pos, w_species, w_op, w_value, w_repeat, armed, stop):
     """Simulate one replicate into ``out`` (T, S); return (status, events).
 
     ``state`` (uint64[4]) is this replicate's generator; it is advanced in place. ``prog`` must be
@@ -206,6 +208,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
     """
     n_s = x0.shape[0]
     n_t = times.shape[0]
+    n_w = w_species.shape[0]
     log_cap = log_t.shape[0] if log_t is not None else 0
     s0 = state[0]
     s1 = state[1]
@@ -310,6 +313,10 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         n_ev += 1
         if status != 0:
             break
+        if n_w > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+            status = STATUS_STOPPED
+            stop[0] = t
+            break
     state[0] = s0
     state[1] = s1
     state[2] = s2
@@ -318,7 +325,7 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         k = 0
     while k < n_t:
         for s in range(n_s):
-            out[k, s] = -1 if status != 0 else x[s]
+            out[k, s] = x[s] if status == 0 or status == STATUS_STOPPED else -1
         k += 1
     return status, n_ev
 
@@ -326,7 +333,8 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol)."""
-    prog, n_r = model
+    prog, n_r, watch = model
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
     x = np.empty_like(x0)
     a = np.empty(n_r)
     unused = np.empty(n_r)
@@ -335,7 +343,7 @@ def run(model, rates, law, x0, times, states, max_events, counts, status, events
     pos = np.empty(n_r, np.uint64)
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, n_r, rates, law, x0, times, states[i], max_events, counts[i], log_t, log_r,
-                          log_x, x, a, unused, ht, hr, pos)
+                          log_x, x, a, unused, ht, hr, pos, w_species, w_op, w_value, w_repeat, armed, stop)
         status[i] = st
         events[i] = ev
 
@@ -361,7 +369,7 @@ def _without_self_loops(network: Network) -> Network:
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Seeds, max_events: int) -> KernelResult:
+             seeds: Seeds, max_events: int, changes: Schedule | None = None) -> KernelResult:
     """Simulate one replicate per seed with the next reaction method.
 
     Parameters
@@ -390,14 +398,14 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1.0]), np.array([10]), np.linspace(0, 5, 6),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000)
     """
-    return blocks.simulate("nrm", network, rates, x0, times, seeds, max_events)
+    return blocks.simulate("nrm", network, rates, x0, times, seeds, max_events, changes)
 
 
 def trace(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-          seed: np.random.SeedSequence, max_events: int) -> Trace:
+          seed: np.random.SeedSequence, max_events: int, changes: Schedule | None = None) -> Trace:
     """Recompute one replicate with its full event log.
 
     Consumes the random stream exactly as ``simulate`` does, so ``result`` equals the
     replicate's row of ``simulate`` bit for bit.
     """
-    return blocks.trace("nrm", network, rates, x0, times, seed, max_events)
+    return blocks.trace("nrm", network, rates, x0, times, seed, max_events, changes)

@@ -43,8 +43,8 @@ import numba
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from kernels import METHODS
-from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, KernelResult, Network
+from kernels import METHODS, changes
+from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, KernelResult, Network
 from kernels.ratelaw import addresses, call_law
 
 # the registry's dtype, as the attribute sweep.store and sweep.plan read until they read the record
@@ -140,8 +140,9 @@ class _NonFinite(Exception):
 class _System:
     """The right-hand side and Jacobian for ``solve_ivp``, counting evaluations against a cap."""
 
-    def __init__(self, network: Network, scaled: np.ndarray, rates: np.ndarray, max_events: int):
+    def __init__(self, network: Network, scaled: np.ndarray, rates: np.ndarray, max_events: int, t0: float = 0.0):
         self.laws = (network.law_mask, rates, addresses(network)[1])
+        self.t0 = t0  # the absolute time of the solve's t = 0 (a segment of a run with changes)
         self.args = (scaled, network.reactant_idx, network.reactant_mult, network.change_idx, network.change_val)
         self.max_events = max_events
         self.time_slot = network.time_slot
@@ -152,7 +153,7 @@ class _System:
             raise _EventCap
         self.calls += 1
         if self.time_slot >= 0:
-            self.laws[1][self.time_slot] = t  # a law that reads the time (Network.time_slot)
+            self.laws[1][self.time_slot] = self.t0 + t  # a law that reads the time (Network.time_slot)
         dx = _rhs(x, self.args[0], *self.laws, *self.args[1:])
         if not np.isfinite(dx).all():
             raise _NonFinite
@@ -170,9 +171,14 @@ def _scaled_rates(network: Network, rates: np.ndarray) -> np.ndarray:
 
 
 def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray, max_events: int, *,
-          ode_method: str = DEFAULT_ODE_METHOD, rtol: float = RTOL, atol: float = ATOL
-          ) -> tuple[np.ndarray, int, int]:
+          ode_method: str = DEFAULT_ODE_METHOD, rtol: float = RTOL, atol: float = ATOL, t0: float = 0.0,
+          watch: tuple | None = None) -> tuple[np.ndarray, int, int]:
     """Solve the rate equations once: (samples float64 (T, S), status, right-hand-side evaluations).
+
+    ``t0`` and ``watch`` serve a run with changes (``simulate_changes``): the absolute time of
+    t = 0, and the state-triggered events (``kernels.changes.Watch``), located by ``solve_ivp``'s
+    event finder; at the first, the status is ``STATUS_STOPPED``, ``watch[5][0]`` its time, and
+    every later sample holds the state there.
 
     Raises
     ------
@@ -194,7 +200,7 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     if not np.isfinite(a).all():
         row[:] = -1.0
         return row, STATUS_NUMERICAL, 0
-    if not later.any() or (not a.any() and network.time_slot < 0):
+    if not later.any() or (not a.any() and network.time_slot < 0 and watch is None):
         # nothing to integrate, or x0 is an equilibrium (every rate is 0 there and no law reads t)
         return row, 0, 0
     # solve_ivp wants strictly increasing t_eval: solve on the distinct times, then spread back
@@ -206,11 +212,12 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     budget = min(int(max_events), LSODA_BUDGET) if ode_method == "LSODA" else int(max_events)
     spent = 0
     while True:
-        system = _System(network, scaled, rates, budget)
+        system = _System(network, scaled, rates, budget, t0)
         try:
             # the analytic Jacobian covers mass action only; with custom laws the solver differences
             sol = solve_ivp(system.rhs, (0.0, float(t_eval[-1])), x0, method=ode_method, t_eval=t_eval,
-                            jac=system.jac if network.law is None else None, rtol=rtol, atol=atol)
+                            jac=system.jac if network.law is None else None, rtol=rtol, atol=atol,
+                            events=_events(watch) if watch is not None and watch[0].shape[0] else None)
             break
         except _EventCap:
             spent += system.calls
@@ -223,6 +230,8 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
             row[:] = -1.0
             return row, STATUS_NUMERICAL, spent + system.calls
     system.calls += spent
+    if sol.success and sol.status == 1:  # a state-triggered event ended the solve
+        return _stopped(sol, row, later, where, watch, system.calls)
     if not sol.success or sol.y.shape[1] != t_eval.shape[0] or not np.isfinite(sol.y).all():
         row[:] = -1.0
         return row, STATUS_NUMERICAL, system.calls
@@ -230,8 +239,70 @@ def solve(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray
     return row, 0, system.calls
 
 
+def _events(watch: tuple) -> list:
+    """``solve_ivp`` event functions: each armed condition's threshold crossing ends the solve, and
+    so does a disarmed repeating one's crossing back (``kernels.changes.fire`` then re-arms it)."""
+    w_species, w_op, w_value, w_repeat, armed, _ = watch
+    found = []
+    for w in range(w_species.shape[0]):
+        rising = w_op[w] in (changes.GE, changes.GT)
+        if not armed[w] and not w_repeat[w]:
+            continue
+        toward = rising == bool(armed[w])  # toward the condition while armed, away from it to re-arm
+
+        def crossing(t, x, s=int(w_species[w]), v=float(w_value[w])):
+            return x[s] - v
+
+        crossing.terminal = True
+        crossing.direction = 1.0 if toward else -1.0
+        found.append(crossing)
+    return found
+
+
+def _stopped(sol, row, later, where, watch, calls):
+    """The samples of a solve ended by an event: those before it, then the state at it."""
+    hits = [(float(te[0]), ye[0]) for te, ye in zip(sol.t_events, sol.y_events) if te.shape[0]]
+    t_stop, y_stop = min(hits, key=lambda h: h[0])
+    y_stop = np.maximum(np.asarray(y_stop, dtype=np.float64), 0.0)
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
+    for w in range(w_species.shape[0]):
+        # the located root is within rounding of the threshold: settle it on the side the crossing
+        # went to (inside the condition for an armed event, outside it for one waiting to re-arm)
+        s, v, op = int(w_species[w]), float(w_value[w]), int(w_op[w])
+        if abs(y_stop[s] - v) > 1e-9 * max(1.0, abs(v)) or not (armed[w] or w_repeat[w]):
+            continue
+        up = op in (changes.GE, changes.GT)
+        inside = {changes.GE: v, changes.LE: v, changes.GT: np.nextafter(v, np.inf),
+                  changes.LT: np.nextafter(v, -np.inf)}[op]
+        y_stop[s] = inside if armed[w] else np.nextafter(v, -np.inf if up else np.inf)
+    # the samples solved before the event (scipy gives an empty list, not an array, when there are none)
+    n_got = len(sol.t)
+    values = np.empty((int(where.max()) + 1 if where.size else 0, row.shape[1]))
+    if n_got:
+        values[:n_got] = np.maximum(np.asarray(sol.y).T, 0.0)
+    values[n_got:] = y_stop
+    row[later] = values[where]
+    stop[0] = t_stop
+    return row, STATUS_STOPPED, calls
+
+
+def simulate_changes(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray, n: int,
+                     max_events: int, schedule: changes.Schedule, **options) -> KernelResult:
+    """``simulate`` with interventions: the solution runs from change to change
+    (``kernels.changes.segments``); thinning multiplies by the kept fraction."""
+    row = np.empty((times.shape[0], len(x0)), dtype=COUNTS_DTYPE)
+
+    def run_segment(x, r, seg, budget, watch, changed, t0):
+        return (*solve(network, r, x, seg, budget, t0=t0, watch=watch, **options), 0)
+
+    status, calls, _ = changes.segments(run_segment, schedule, np.asarray(x0, dtype=np.float64),
+                                        np.asarray(rates, dtype=np.float64), times, max_events, None, row, "mean")
+    return KernelResult(np.broadcast_to(row, (n,) + row.shape).copy(),
+                        np.full(n, status, dtype=np.int8), np.full(n, calls, dtype=np.int64))
+
+
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Sequence[np.random.SeedSequence], max_events: int, *,
+             seeds: Sequence[np.random.SeedSequence], max_events: int, changes: changes.Schedule | None = None, *,
              ode_method: str = DEFAULT_ODE_METHOD, rtol: float = RTOL, atol: float = ATOL) -> KernelResult:
     """Solve the deterministic rate equations; one identical row per seed.
 
@@ -276,6 +347,9 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     if n == 0:
         return KernelResult(np.empty((0, times.shape[0], len(x0)), dtype=COUNTS_DTYPE),
                             np.empty(0, dtype=np.int8), np.empty(0, dtype=np.int64))
+    if changes is not None and (changes.times.shape[0] or changes.n_watch):
+        return simulate_changes(network, rates, x0, times, n, max_events, changes, ode_method=ode_method,
+                                rtol=rtol, atol=atol)
     row, status, calls = solve(network, rates, x0, times, max_events, ode_method=ode_method, rtol=rtol, atol=atol)
     return KernelResult(np.broadcast_to(row, (n,) + row.shape).copy(),
                         np.full(n, status, dtype=np.int8), np.full(n, calls, dtype=np.int64))

@@ -55,12 +55,14 @@ import numba
 import numpy as np
 
 from kernels import blocks
-from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL
+from kernels.changes import watch_hit
+from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED
 from kernels.propensity import program, propensity
 from kernels.rng import uniform, uniform_open0
 
 if TYPE_CHECKING:
     from kernels.blocks import Seeds
+    from kernels.changes import Schedule
 
 DEFAULT_EPSILON = 0.03
 N_CRITICAL = 10  # n_c of Cao, Gillespie & Petzold (2005)
@@ -239,7 +241,8 @@ def _fire(x, j, n, change_idx, change_val):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st, out, t, k, steps, max_steps, n_steps):
+def _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st, out, t, k, steps, max_steps, n_steps,
+                 w_species, w_op, w_value, w_repeat, armed, stop):
     """Up to ``n_steps`` direct-method steps (Gillespie 1977); the same sampling as kernels.direct.
 
     Returns (t, k, steps, status, finished): finished when every sample is written or the state is
@@ -269,6 +272,9 @@ def _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st, out,
         _fire(x, j, 1, change_idx, change_val)
         t = t_new
         steps += 1
+        if w_species.shape[0] > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+            stop[0] = t
+            return t, k, steps, STATUS_STOPPED, True
     return t, k, steps, 0, False
 
 
@@ -298,8 +304,13 @@ def _critical(x, a, change_idx, change_val, n_c, critical):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st, max_steps, eps, out):
-    """Simulate one replicate into ``out`` (T, S); return (status, steps)."""
+def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st, max_steps, eps, out,
+             w_species, w_op, w_value, w_repeat, armed, stop):
+    """Simulate one replicate into ``out`` (T, S); return (status, steps).
+
+    ``w_species`` ... ``stop``: the state-triggered events, as in ``kernels.direct._run_one``, checked
+    after every leap and every exact step.
+    """
     n_r = change_idx.shape[0]
     n_s = x0.shape[0]
     n_t = times.shape[0]
@@ -360,19 +371,23 @@ def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st,
                 x[:] = trial
                 t = times[k] if tau == horizon else t + tau  # end exactly on the sample time
                 steps += 1
+                if w_species.shape[0] > 0 and watch_hit(w_species, w_op, w_value, w_repeat, armed, x):
+                    status = STATUS_STOPPED
+                    stop[0] = t
                 break
             if status != 0:
                 break
         if n_exact > 0:
             t, k, steps, status, finished = _exact_steps(prog, rates, law, change_idx, change_val, x, a, times, st,
-                                                         out, t, k, steps, max_steps, n_exact)
+                                                         out, t, k, steps, max_steps, n_exact, w_species, w_op,
+                                                         w_value, w_repeat, armed, stop)
             if finished:
                 break
     if status == STATUS_NUMERICAL:
         k = 0
     while k < n_t:
         for s in range(n_s):
-            out[k, s] = -1 if status != 0 else x[s]
+            out[k, s] = x[s] if status == 0 or status == STATUS_STOPPED else -1
         k += 1
     return status, steps
 
@@ -380,10 +395,11 @@ def _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, st,
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def run(model, rates, law, x0, times, states, max_events, counts, status, events, aux, log_t, log_r, log_x):
     """Run replicate i from ``states[i]`` into ``counts[i]`` (``kernels.blocks``'s loop protocol; no logs)."""
-    prog, change_idx, change_val, hor, need, eps = model
+    prog, change_idx, change_val, hor, need, eps, watch = model
+    w_species, w_op, w_value, w_repeat, armed, stop = watch
     for i in range(states.shape[0]):
         st, ev = _run_one(prog, rates, law, change_idx, change_val, hor, need, x0, times, states[i], max_events, eps,
-                          counts[i])
+                          counts[i], w_species, w_op, w_value, w_repeat, armed, stop)
         status[i] = st
         events[i] = ev
 
@@ -408,7 +424,8 @@ def prepare(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarr
 
 
 def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndarray,
-             seeds: Seeds, max_events: int, *, epsilon: float = DEFAULT_EPSILON) -> KernelResult:
+             seeds: Seeds, max_events: int, changes: Schedule | None = None, *,
+             epsilon: float = DEFAULT_EPSILON) -> KernelResult:
     """Simulate one replicate per seed by tau-leaping (Cao, Gillespie & Petzold 2006).
 
     Parameters
@@ -444,4 +461,4 @@ def simulate(network: Network, rates: np.ndarray, x0: np.ndarray, times: np.ndar
     >>> res = simulate(net, np.array([1000.0, 1.0]), np.array([0]), np.linspace(0, 10, 11),
     ...                [np.random.SeedSequence(1, spawn_key=(0, 0))], 10_000, epsilon=0.03)
     """
-    return blocks.simulate("tau_leap", network, rates, x0, times, seeds, max_events, epsilon=epsilon)
+    return blocks.simulate("tau_leap", network, rates, x0, times, seeds, max_events, changes, epsilon=epsilon)

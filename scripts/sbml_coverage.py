@@ -31,6 +31,13 @@ from pathlib import Path
 REASONS = (
     (r"initial count .* more than", "initial counts over 2^31-1"),
     (r"cannot honour", "ODE-only construct (rate rule) for a stochastic method"),
+    (r"event .*: a delay", "event delays"),
+    (r"event .*: priorities", "event priorities"),
+    (r"event .*: initialValue", "event trigger already true at t = 0 (initialValue=true)"),
+    (r"event .*: trigger", "event triggers of another form"),
+    (r"event .*: (assign|only species)", "event assignments of another form"),
+    (r"changes nothing|rate entry .* reads", "event sets a parameter no rate reads, or shares a rate"),
+    (r"event .* reads .*rule", "event reads a variable of a refused rule"),
     (r"\bevent\b", "events"),
     (r"rate rule", "rate rules"),
     (r"algebraic rule", "algebraic rules"),
@@ -94,9 +101,13 @@ def probe(model: Path, method: str, end: float, volume: float | None) -> dict:
         values = spec.values_at(spec.points()[0])
         x0 = initial_counts(spec.model, values)
         seeds = [np.random.SeedSequence(1)]
+        options = dict(spec.options)
+        if spec.interventions:  # imported events run as the sweep would run them
+            from sweep.model.schedule import build
+
+            options["changes"] = build(spec.model, spec.interventions, spec.derived, values, spec.times[-1])
         result = kernels.get(spec.method).simulate(compile_network(spec.model), rate_constants(spec.model, values),
-                                                   x0, np.asarray(spec.times), seeds, spec.max_events,
-                                                   **dict(spec.options))
+                                                   x0, np.asarray(spec.times), seeds, spec.max_events, **options)
         status = int(np.asarray(result.status).max())
         if status == 1 and method == "ode":
             return {"outcome": "stopped", "status": status}

@@ -63,6 +63,12 @@ def check(
     console.print(reactions)
     if spec.model_notes:
         console.print(_conversions(spec))
+    if spec.interventions:
+        timed = sum(1 for i in spec.interventions if hasattr(i, "at"))
+        console.print(f"interventions: {timed} timed (change), {len(spec.interventions) - timed} "
+                      "state-triggered (when)", highlight=False)
+        for where, text in spec.intervention_notes:
+            console.print(f"[yellow]note[/] {shown(where)}: {shown(text)}", highlight=False)
     design = Table(title=f"Design: {spec.design.kind}", title_justify="left")
     design.add_column("parameter")
     design.add_column("values")

@@ -246,7 +246,7 @@ def input_builder(spec: Spec, points: np.ndarray) -> Callable[[list[Task]], Task
                 cache.clear()
             values = spec.values_at(points[p])
             cache[p] = (rate_constants(spec.model, values), initial_counts(spec.model, values),
-                        readout.values_of(values) if readout is not None else ())
+                        readout.values_of(values) if readout is not None else (), point_schedule(spec, values))
         return cache[p]
 
     def make(tasks: list[Task]) -> TaskInput:
@@ -255,6 +255,15 @@ def input_builder(spec: Spec, points: np.ndarray) -> Callable[[list[Task]], Task
                          readout)
 
     return make
+
+
+def point_schedule(spec: Spec, values: dict[str, float]):
+    """The point's interventions as a ``kernels.changes.Schedule``, or None without any."""
+    if not spec.interventions:
+        return None
+    from sweep.model import schedule
+
+    return schedule.build(spec.model, spec.interventions, spec.derived, values, spec.times[-1])
 
 
 def task_inputs(spec: Spec, points: np.ndarray, tasks: list[Task]) -> Iterator[TaskInput]:

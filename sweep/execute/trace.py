@@ -74,8 +74,13 @@ def trace(path: str | Path, point: int, replicate: int) -> ReplicateTrace:
     values = spec.values_at(g["params"][point])
     seed = replicate_seeds(spec.seed, point, replicate, replicate + 1)[0]
     times = np.asarray(spec.times)
+    extra = {}
+    if spec.interventions:  # else the kernel is called as before, so older stores trace the same
+        from sweep.model import schedule
+
+        extra["changes"] = schedule.build(spec.model, spec.interventions, spec.derived, values, spec.times[-1])
     log = kernel.trace(compile_network(spec.model), rate_constants(spec.model, values),
-                       initial_counts(spec.model, values), times, seed, spec.max_events)
+                       initial_counts(spec.model, values), times, seed, spec.max_events, **extra)
     block = replicate // int(attrs["replicates_per_task"])
     stored = g["counts"][point, replicate] if g["done"][point, block] else None
     return ReplicateTrace(point, replicate, {n: values[n] for n in spec.param_names}, spec.model.species,

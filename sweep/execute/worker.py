@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 import kernels
+from kernels.changes import Schedule
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
 from sweep.model.observables import Readout
@@ -33,6 +34,9 @@ class BlockInput:
     rates: np.ndarray
     x0: np.ndarray
     readout_values: tuple[float, ...] = ()  # the point's values of the parameters the observables read
+    # the point's interventions (kernels.changes.Schedule, built by sweep.model.schedule); None
+    # without any, and then the kernels are called exactly as before (the same bytes)
+    changes: Schedule | None = None
 
 
 @dataclass(frozen=True)
@@ -89,7 +93,8 @@ def _run_blocks(task: TaskInput, kernel, options: dict, done: list) -> float:
         started = time.perf_counter()
         # SeedSequence(root, spawn_key=(point, r)) for each replicate, computed compiled (kernels.seeding)
         result = kernel.simulate(task.network, b.rates, b.x0, task.times, Streams(task.root_seed, b.point, b.start,
-                                                                                  b.stop), task.max_events, **options)
+                                                                                  b.stop), task.max_events,
+                                 **with_changes(options, b.changes))
         in_kernel += time.perf_counter() - started
         observed = None if task.readout is None else task.readout.evaluate(result.counts, result.status,
                                                                             b.readout_values)
@@ -108,4 +113,10 @@ def warm_up(task: TaskInput) -> None:
     """
     b = task.blocks[0]
     kernels.get(task.method).simulate(task.network, b.rates, b.x0, task.times, [np.random.SeedSequence(0)], 1,
-                                      **dict(task.options))
+                                      **with_changes(dict(task.options), b.changes))
+
+
+def with_changes(options: dict, changes: Schedule | None) -> dict:
+    """The kernel's keyword arguments: ``changes`` only when there are interventions, so a sweep
+    without them calls every kernel exactly as before."""
+    return options if changes is None else {**options, "changes": changes}

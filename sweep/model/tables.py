@@ -31,7 +31,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from kernels.network import Network
-from sweep.model import expr, ratelaws
+from sweep.model import changes as interventions_, expr, ratelaws
 from sweep.model import observables as observed
 from sweep.spec import limits
 from sweep.errors import SpecError
@@ -80,6 +80,8 @@ class Model:
     volume: float | None = None
     # [observables]: (name, expression) read from the counts on the sample grid (sweep.model.observables)
     observables: tuple[tuple[str, expr.Expr], ...] = ()
+    # [[change]] and [[when]] (sweep.model.changes): interventions during a run, in the order written
+    interventions: tuple[interventions_.Intervention, ...] = ()
 
     @property
     def omega(self) -> float | None:
@@ -155,7 +157,8 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     SpecError
         Naming the file, the field and the fix.
     """
-    _check_keys(table, {"species", "parameters", "reactions", "units", "observables"}, source, prefix.rstrip("."))
+    _check_keys(table, {"species", "parameters", "reactions", "units", "observables", "change", "when"}, source,
+                prefix.rstrip("."))
     species_t = _table(table, "species", source, prefix, required=True)
     params_t = _table(table, "parameters", source, prefix, required=False)
     reactions_t = _table(table, "reactions", source, prefix, required=True)
@@ -191,7 +194,9 @@ def parse_model(table: Mapping[str, Any], source: str, prefix: str = "") -> Mode
     _check_parameter_uses(dict(parameters), reactions, initial, source, prefix)
     readouts = observed.parse(table.get("observables"), tuple(species), param_names, {r.name for r in reactions},
                               source, f"{prefix}observables")
-    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume, readouts)
+    listed = interventions_.parse_lists(table, species, param_names, source, prefix)
+    model = Model(tuple(species), tuple(initial), tuple(parameters), reactions, constants, volume, readouts,
+                  listed)
     _check_dependencies(model, source, prefix)
     return model
 

@@ -24,6 +24,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from sweep.model import changes
+
 if TYPE_CHECKING:
     from sweep.spec import Spec
 
@@ -44,7 +46,7 @@ def of(spec: Spec, points: np.ndarray) -> dict[str, Any]:
     index = {name: i for i, name in enumerate(model.species)}
     times = np.ascontiguousarray(spec.times, dtype=np.float64)
     points = np.ascontiguousarray(points, dtype=np.float64)
-    return {
+    found = {
         "format": FORMAT,
         "method": spec.method,
         "options": {k: v for k, v in sorted(spec.options)},
@@ -65,6 +67,9 @@ def of(spec: Spec, points: np.ndarray) -> dict[str, Any]:
         # only when there are some, so a store without observables keeps the fingerprint it always had
         **({"observables": _observables(model)} if model.observables else {}),
     }
+    if spec.interventions:  # only when there are any: the fingerprints of older stores stay as they were
+        found["interventions"] = changes.describe(spec.interventions)
+    return found
 
 
 def digest(identity: dict[str, Any]) -> str:
@@ -98,6 +103,8 @@ def differences(old: dict[str, Any], new: dict[str, Any]) -> list[str]:
         out.append(f"design points: {_count(old.get('points'))} -> {_count(new.get('points'))} points"
                    if _count(old.get("points")) != _count(new.get("points"))
                    else "design points: the same number of points, at other parameter values or in another order")
+    if old.get("interventions") != new.get("interventions"):
+        out += _interventions(old.get("interventions") or [], new.get("interventions") or [])
     old_values, new_values = old.get("values", {}), new.get("values", {})
     for name in sorted(set(old_values) | set(new_values)):
         a, b = old_values.get(name), new_values.get(name)
@@ -159,6 +166,7 @@ def _values(spec: Spec, points: np.ndarray) -> dict[str, Any]:
     used |= {v for v in model.initial if isinstance(v, str)}
     used |= set(model.law_parameters)
     used |= {n for _, e in model.observables for n in e.names if n not in model.species}
+    used |= changes.referenced(spec.interventions)
     columns = spec.columns(points)
     out: dict[str, Any] = {}
     for name in sorted(used):
@@ -187,6 +195,19 @@ def _observables_moved(old: list, new: list) -> list[str]:
     lines = [f"observable {name}: " + ("added" if name not in a else "removed" if name not in b else "edited")
              for name in list(a) + [n for n in b if n not in a] if a.get(name) != b.get(name)]
     return lines[:_SHOWN]
+
+
+def _interventions(old: list[dict], new: list[dict]) -> list[str]:
+    """Each [[change]]/[[when]] (model's first, then the spec's) that was added, removed or edited."""
+    if len(old) != len(new):
+        return [f"interventions ([[change]], [[when]]): {len(old)} -> {len(new)}"]
+    out = []
+    for i, (a, b) in enumerate(zip(old, new)):
+        kind = "change" if "at" in b else "when"
+        for key in sorted(set(a) | set(b)):
+            if a.get(key) != b.get(key):
+                out.append(f"intervention {i} ([[{kind}]]) {key}: {_show(a.get(key))} -> {_show(b.get(key))}")
+    return out[:_SHOWN]
 
 
 def _sha(array: np.ndarray) -> str:

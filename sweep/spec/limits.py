@@ -53,6 +53,10 @@ MAX_COUNT = 2**31 - 1
 # molecules of one species a reaction consumes or makes: the kernels hold it as int32 and loop
 # over it per propensity (C(x, m) is a product of m factors; tau-leaping's g_i a sum of m terms)
 MAX_STOICHIOMETRY = 1000
+# instants of timed changes per point, repeats expanded ([[change]], sweep.model.schedule): each
+# is a kernel segment (a restart of the event loop) and 3 numbers per operation in every task's
+# pickled input; building 100,000 instants of one operation takes ~0.3 s per point
+MAX_INSTANTS = 100_000
 
 # ---- the sweep's size ------------------------------------------------------------------------
 # every point is expanded in memory by check and run; the store's params and done arrays are

@@ -55,8 +55,9 @@ import kernels
 from sweep.spec import adaptive as adaptives
 from sweep.batch import settings as clusters
 from sweep import design as designs
+from sweep.spec import derived as derived_table
 from sweep.spec import diff as specdiff
-from sweep.model import expr as expressions
+from sweep.model import changes as interventions, expr as expressions
 from sweep.spec import imports as model_files
 from sweep.spec import inputs, limits
 from sweep.model import sbml
@@ -68,7 +69,8 @@ DEFAULT_REPLICATES_PER_TASK = 100
 DEFAULT_MAX_EVENTS = 100_000_000
 DEFAULT_SAMPLES = 101
 
-_TOP_KEYS = {"model", "model_volume", "run", "time", "parameters", "design", "derived", "cluster", "plot"}
+_TOP_KEYS = {"model", "model_volume", "run", "time", "parameters", "design", "derived", "cluster", "plot", "change",
+             "when"}
 _PLOT_KEYS = {"species"}
 _RUN_KEYS = {"method", "replicates", "replicates_per_task", "seed", "store", "max_events", "options", "adaptive"}
 
@@ -106,11 +108,21 @@ class Spec:
     # the model's observables (name, expression text): [observables], or SBML assignment rules that read species
     observables: tuple[tuple[str, str], ...] = ()
     time_unit: str = ""                              # [time] unit, else the SBML model's timeUnits
+    # the model's [[change]]/[[when]] lists, then the spec's (sweep.model.changes; built per point by
+    # sweep.model.schedule)
+    interventions: tuple[interventions.Intervention, ...] = ()
 
     @property
     def store_replicates(self) -> int:
         """Replicates per point the store holds: ``replicates``, or ``[run.adaptive]``'s maximum."""
         return self.adaptive.max_replicates if self.adaptive is not None else self.replicates
+
+    @property
+    def intervention_notes(self) -> list[tuple[str, str]]:
+        """Timed changes after the end (dropped), for ``sweep check`` (``sweep.model.schedule.notes``)."""
+        from sweep.model import schedule
+        points = self._points
+        return schedule.notes(self.interventions, self.columns(points), points.shape[0], self.times[-1])
 
     @property
     def content_sha256(self) -> str:
@@ -271,7 +283,7 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
         if name in overrides:
             raise SpecError(src, f"parameters.{name}", "also varied under [design]; the fixed value would be ignored",
                             fix=f"remove {name} from [parameters], or from the design")
-    derived = _derived(_sub(doc, "derived", src), dict(fixed), overrides, design.names, src)
+    derived = derived_table.parse(_sub(doc, "derived", src), dict(fixed), overrides, design.names, src)
     limits.check_sweep(designs.size(design), adaptive.max_replicates if adaptive is not None else replicates,
                        per_task, len(times), len(model.species), lambda: _itemsize(method),
                        "run.adaptive.max_replicates" if adaptive is not None else "run.replicates", src)
@@ -286,7 +298,9 @@ def from_text(text: str, path: str | Path, model_text: str = "", store: str | Pa
                 model_notes=imported.notes if imported is not None else (),
                 observables=tuple((n, e.text) for n, e in model.observables), time_unit=time_unit,
                 cluster=tuple(clusters.parse(_sub(doc, "cluster", src), src).items()),
-                plot_species=_plot_species(_sub(doc, "plot", src), model, src))
+                plot_species=_plot_species(_sub(doc, "plot", src), model, src),
+                interventions=model.interventions + interventions.parse_lists(
+                    doc, model.species, model.parameter_values, src))
     check_points(spec, src, _model_source(doc, path))
     return spec
 
@@ -430,51 +444,6 @@ def _fixed(table, model: Model, src) -> tuple[tuple[str, float], ...]:
 
 def _known(values) -> str:
     return f"known parameters: {listing(values)}"
-
-
-def _derived(table, known, overrides, varied, src) -> tuple[tuple[str, expressions.Expr], ...]:
-    """Parse ``[derived]`` and order it so every expression comes after the ones it uses."""
-    exprs = {}
-    for name, text in table.items():
-        field = f"derived.{name}"
-        if name not in known:
-            raise SpecError(src, field, "not a parameter of the model", fix=_known(known))
-        if name in overrides or name in varied:
-            where = "[parameters]" if name in overrides else "[design]"
-            raise SpecError(src, field, f"also set under {where}", fix="a parameter is fixed, varied or derived: pick one")
-        if not isinstance(text, str):
-            raise SpecError(src, field, "must be an expression in quotes", text,
-                            f'e.g. {name} = "k_on * Kd"; a fixed value belongs under [parameters]')
-        expr = expressions.parse(text, src, field)
-        for used in expr.names:
-            if used not in known:
-                raise SpecError(src, field, f"unknown name {used!r}", text, _known(known))
-        exprs[name] = expr
-    return tuple((name, exprs[name]) for name in _evaluation_order(exprs, src))
-
-
-def _evaluation_order(exprs: Mapping[str, expressions.Expr], src: str) -> list[str]:
-    """Depth-first topological order of the derived parameters; a cycle is an error."""
-    order: list[str] = []
-    state: dict[str, str] = {}
-
-    def visit(name: str, path: list[str]) -> None:
-        if state.get(name) == "done":
-            return
-        if state.get(name) == "open":
-            cycle = path[path.index(name):] + [name]
-            raise SpecError(src, f"derived.{name}", f"derived parameters form a cycle: {' -> '.join(cycle)}",
-                            fix="at least one of them must be fixed or varied instead")
-        state[name] = "open"
-        for used in exprs[name].names:
-            if used in exprs:
-                visit(used, path + [name])
-        state[name] = "done"
-        order.append(name)
-
-    for name in exprs:
-        visit(name, [])
-    return order
 
 
 def _model_source(doc: Mapping[str, Any], path: Path) -> tuple[str, str]:

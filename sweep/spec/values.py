@@ -56,6 +56,11 @@ def check_points(spec: Spec, src: str, model_where: tuple[str, str]) -> None:
             _check_value(name, float(value), *roles, src, f"design.vary.{name}")
     if derived and points.shape[0]:
         _check_derived(spec, points, derived, roles, src)
+    if spec.interventions:
+        from sweep.model import schedule  # only sweeps with interventions pay for it
+
+        schedule.check(spec.model, spec.interventions, spec.derived, spec.columns(points), points.shape[0],
+                       spec.times[-1])
 
 
 def _count_limit(method: str) -> float:

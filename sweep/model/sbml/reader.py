@@ -24,7 +24,7 @@ from typing import Any
 from sweep.spec import inputs
 from sweep.errors import SpecError
 from sweep.model.sbml import initial as initial_values
-from sweep.model.sbml import laws, rules, volume
+from sweep.model.sbml import events, laws, rules, volume
 from sweep.model import observables
 from sweep.model.sbml.math import AVOGADRO, TIME
 from sweep.model.sbml.reactions import convert
@@ -170,6 +170,7 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     ctx.beta = {s: info.beta for s, info in ctx.species.items()}
     rules.collect(ctx)
     initial_values.assign(ctx, initial)
+    initial_derived = set(ctx.derived)  # initial assignments (an event must not assign what they read)
     for p in model.getListOfParameters():
         pid = p.getId()
         if not p.isSetValue() and pid not in ctx.derived and pid not in ctx.assigned_targets \
@@ -183,12 +184,14 @@ def read(text: str, source: str, model_volume: float | None = None) -> Imported:
     reactions.update(rules.rate_reactions(ctx, counts))
     observed, unread = observables.storable(rules.observables(ctx, counts))
     ctx.notes.extend(unread)
+    timed, watched = events.convert(ctx, initial, initial_derived)
     volume.describe_counts(ctx, initial, model_volume)
     _refuse(ctx)
     parameters = {name: float(value) for name, value in ctx.values.items()}
     table = {"species": initial, "parameters": parameters, "reactions": reactions}
     if observed:  # checked and stored like a TOML model's [observables] (sweep.model.observables)
         table["observables"] = dict(observed)
+    table.update({k: v for k, v in (("change", timed), ("when", watched)) if v})
     return Imported(table, tuple((n, t) for n, t in ctx.derived.items()), tuple(ctx.aliases.items()),
                     tuple(ctx.notes), tuple(ctx.ode_only), tuple(observed.items()), volume.time_unit(model))
 
@@ -278,11 +281,9 @@ def _raise_errors(doc, source: str, problem: str, warnings: list) -> None:
 
 
 def _unsupported_elements(ctx: _Context) -> None:
-    """Events, constraints, conversion factors, fast reactions, required packages."""
+    """Constraints, conversion factors, fast reactions, required packages."""
     model, out = ctx.model, ctx.problems
-    for i, event in enumerate(model.getListOfEvents()):
-        out.append(f"event {event.getId() or '#' + str(i + 1)}: events are not supported")
-    # rules: sweep.model.sbml.rules
+    # events: sweep.model.sbml.events; rules: sweep.model.sbml.rules
     for i, constraint in enumerate(model.getListOfConstraints()):
         out.append(f"constraint {constraint.getId() or '#' + str(i + 1)}: constraints are not checked during "
                    "a simulation, so they are refused rather than ignored")

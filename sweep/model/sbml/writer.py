@@ -60,6 +60,12 @@ def write(model: Model, source: str = "model", values: Mapping[str, float] | Non
     -------
     >>> text = write(sweep.load("configs/reporter.toml").model)
     """
+    if model.interventions:
+        # events would be the faithful form, but thinning (keep) has no SBML event equivalent; refused
+        # rather than written without them
+        first = model.interventions[0]
+        raise SpecError(first.source, first.field, "a model with [[change]] or [[when]] cannot be exported yet",
+                        fix="export the model without its interventions")
     import libsbml
 
     values = dict(model.parameter_values if values is None else values)
