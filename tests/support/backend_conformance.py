@@ -75,12 +75,10 @@ class BackendConformance:
         raise NotImplementedError("a subclass gives the route")
 
     @pytest.fixture(scope="class")
-    def reference(self, tmp_path_factory, spec_writer):
+    def reference(self, reference_run):
         """The arrays of the sweep run in this process, one shard of one, with 5 replicates a task
         (the route's runs use 8): the bytes may depend on neither the route nor the task size."""
-        spec = load(tmp_path_factory.mktemp("backend-reference"), spec_writer, per_task=5)
-        assert sweep.run_shard(spec, 1, 1).complete
-        return arrays(spec.store, WRITTEN)
+        return reference_run(BODY.format(per_task=5), MODEL, WRITTEN)[1]
 
     @pytest.fixture(scope="class")
     def ran(self, route, tmp_path_factory, spec_writer):
