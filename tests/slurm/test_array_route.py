@@ -20,7 +20,6 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-import zarr
 
 import sweep
 from sweep import store
@@ -30,7 +29,8 @@ from sweep.execute.run import task_inputs
 from sweep.execute.tasks import make_tasks
 from sweep.execute.worker import run_task, warm_up
 from support.models import DIMERISING
-from support.stores import arrays
+from support.backend_conformance import assert_complete_and_tidy
+from support.stores import arrays, assert_identical
 
 pytestmark = pytest.mark.slurm
 
@@ -53,12 +53,8 @@ LIVE = "PENDING,RUNNING,CONFIGURING,COMPLETING,SUSPENDED,REQUEUED"
 
 
 def _assert_identical(path: Path, expected: dict[str, np.ndarray]) -> None:
-    got = arrays(path, DATA)
-    for name in DATA:
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-    assert store.read_done(path).all()
-    assert zarr.open_group(path, mode="r")["done"][:].all()  # the finishing side folded the records
-    assert not list(records.folder(path).glob("*")), list(records.folder(path).glob("*"))
+    assert_identical(path, expected, DATA)
+    assert_complete_and_tidy(path)  # the finishing side folded the records
 
 
 @pytest.fixture(scope="module")

@@ -1,4 +1,4 @@
-"""sweep.analyze against published results: Sobol (Ishigami), PRCC, Morris, Fano factor, first passage.
+"""sweep.analyze against published results: Sobol (Ishigami), PRCC, Fano factor, first passage (Morris: test_morris.py).
 
 Statistical checks are seeded; each states its source, significance level or tolerance.
 """
@@ -16,12 +16,12 @@ from distributed import LocalCluster
 from typer.testing import CliRunner
 
 import sweep
-from sweep import design
 from sweep.store import lock
-from sweep.analysis import sensitivity, stats
+from sweep.analysis import stats
 from sweep.analysis.adequacy import standard_errors
 from sweep.cli import app
 from sweep.errors import SpecError, StoreError
+from support.sensitivity_conformance import SensitivityConformance, analysed
 
 Z_999 = 3.29  # two-sided normal quantile for alpha = 0.001
 
@@ -108,46 +108,48 @@ def lhs_store(tmp_path_factory, spec_writer):
     return spec.store
 
 
-def test_sobol_indices_of_the_ishigami_function():
-    """Ishigami & Homma (1990), a = 7, b = 0.1; analytic indices as in Saltelli et al. (2008), Global
-    Sensitivity Analysis: The Primer, section 4.7: S1 = 0.314, S2 = 0.442, S3 = 0, ST1 = 0.558,
-    ST2 = 0.442, ST3 = 0.244. Evaluated on our own Saltelli design's points, through the same
-    function `sweep analyze` uses; each analytic value must lie in its 95 % bootstrap interval."""
-    a, b, pi = 7.0, 0.1, np.pi
-    variance = a ** 2 / 8 + b * pi ** 4 / 5 + b ** 2 * pi ** 8 / 18 + 0.5
-    v1, v2, v13 = 0.5 * (1 + b * pi ** 4 / 5) ** 2, a ** 2 / 8, 8 * b ** 2 * pi ** 8 / 225
-    exact = {"S1": [v1 / variance, v2 / variance, 0.0], "ST": [(v1 + v13) / variance, v2 / variance, v13 / variance]}
-    np.testing.assert_allclose(exact["S1"] + exact["ST"], [0.314, 0.442, 0, 0.558, 0.442, 0.244], atol=5e-4)
+class TestSobol(SensitivityConformance):
+    method, main_index = "sobol", "ST"
+    design = {"kind": "saltelli", "base_samples": 256}
 
-    names = {"x1": 0.0, "x2": 0.0, "x3": 0.0}
-    d = design.parse({"kind": "saltelli", "base_samples": 2048, "vary": {n: {"low": -pi, "high": pi} for n in names}},
-                     names, "ishigami.toml")
-    x = design.expand(d, 20261202)
-    y = np.sin(x[:, 0]) + a * np.sin(x[:, 1]) ** 2 + b * x[:, 2] ** 4 * np.sin(x[:, 0])
-    table = sensitivity.indices(design.describe(d), x, y, seed=1)
-    assert set(table["method"]) == {"sobol"}
-    for index, values in exact.items():
-        rows = table[table["index"] == index]
-        assert list(rows["parameter"]) == ["x1", "x2", "x3"]
-        for value, low, high in zip(values, rows["conf_low"], rows["conf_high"]):
-            assert low <= value <= high, (index, value, low, high)
-            assert high - low < 0.15  # and the intervals are informative
-    assert len(table[table["index"] == "S2"]) == 3  # second-order pairs x1:x2, x1:x3, x2:x3
+    def test_known_result(self):
+        """Ishigami & Homma (1990), a = 7, b = 0.1; analytic indices as in Saltelli et al. (2008), Global
+        Sensitivity Analysis: The Primer, section 4.7: S1 = 0.314, S2 = 0.442, S3 = 0, ST1 = 0.558,
+        ST2 = 0.442, ST3 = 0.244. Evaluated on our own Saltelli design's points, through the same
+        function `sweep analyze` uses; each analytic value must lie in its 95 % bootstrap interval."""
+        a, b, pi = 7.0, 0.1, np.pi
+        variance = a ** 2 / 8 + b * pi ** 4 / 5 + b ** 2 * pi ** 8 / 18 + 0.5
+        v1, v2, v13 = 0.5 * (1 + b * pi ** 4 / 5) ** 2, a ** 2 / 8, 8 * b ** 2 * pi ** 8 / 225
+        exact = {"S1": [v1 / variance, v2 / variance, 0.0],
+                 "ST": [(v1 + v13) / variance, v2 / variance, v13 / variance]}
+        np.testing.assert_allclose(exact["S1"] + exact["ST"], [0.314, 0.442, 0, 0.558, 0.442, 0.244], atol=5e-4)
+        vary = {n: {"low": -pi, "high": pi} for n in ("x1", "x2", "x3")}
+        table = analysed({"kind": "saltelli", "base_samples": 2048, "vary": vary},
+                         lambda x: np.sin(x[:, 0]) + a * np.sin(x[:, 1]) ** 2 + b * x[:, 2] ** 4 * np.sin(x[:, 0]))
+        for index, want in exact.items():
+            rows = table[table["index"] == index]
+            assert list(rows["parameter"]) == ["x1", "x2", "x3"]
+            for value, low, high in zip(want, rows["conf_low"], rows["conf_high"]):
+                assert low <= value <= high, (index, value, low, high)
+                assert high - low < 0.15  # and the intervals are informative
+        assert len(table[table["index"] == "S2"]) == 3  # second-order pairs x1:x2, x1:x3, x2:x3
 
 
-def test_prcc_on_a_known_monotone_dependence():
-    """Marino et al. (2008): PRCC near +1/-1 for a monotone increasing/decreasing dependence and
-    near 0, not significant, for an unused parameter. Immigration-death mean k/g with 10 % noise."""
-    names = {"k": 1.0, "g": 1.0, "u": 1.0}
-    d = design.parse({"kind": "lhs", "points": 200, "vary": {"k": {"low": 1, "high": 10}, "g": {"low": 0.1, "high": 1},
-                                                             "u": {"low": 0, "high": 1}}}, names, "synthetic.toml")
-    x = design.expand(d, 5)
-    noise = np.random.default_rng(np.random.SeedSequence(5, spawn_key=(1,))).normal(1.0, 0.1, len(x))
-    table = sensitivity.indices(design.describe(d), x, x[:, 0] / x[:, 1] * noise).set_index("parameter")
-    assert table.loc["k", "value"] > 0.9 and table.loc["k", "p_value"] < 1e-6
-    assert table.loc["g", "value"] < -0.9 and table.loc["g", "p_value"] < 1e-6
-    assert abs(table.loc["u", "value"]) < 0.2 and table.loc["u", "p_value"] > 0.001
-    assert (table["conf_low"] <= table["value"]).all() and (table["value"] <= table["conf_high"]).all()
+class TestPrcc(SensitivityConformance):
+    # an exact linear function leaves no scatter for partial rank correlations to rank inputs by
+    method, main_index, noise = "prcc", "PRCC", 0.3
+    design = {"kind": "lhs", "points": 200}
+
+    def test_known_result(self):
+        """Marino et al. (2008): PRCC near +1/-1 for a monotone increasing/decreasing dependence and
+        near 0, not significant, for an unused parameter. Immigration-death mean k/g with 10 % noise."""
+        vary = {"k": {"low": 1, "high": 10}, "g": {"low": 0.1, "high": 1}, "u": {"low": 0, "high": 1}}
+        noise = np.random.default_rng(np.random.SeedSequence(5, spawn_key=(1,))).normal(1.0, 0.1, 200)
+        table = analysed({"kind": "lhs", "points": 200, "vary": vary}, lambda x: x[:, 0] / x[:, 1] * noise,
+                         seed=0, design_seed=5).set_index("parameter")
+        assert table.loc["k", "value"] > 0.9 and table.loc["k", "p_value"] < 1e-6
+        assert table.loc["g", "value"] < -0.9 and table.loc["g", "p_value"] < 1e-6
+        assert abs(table.loc["u", "value"]) < 0.2 and table.loc["u", "p_value"] > 0.001
 
 
 def test_prcc_through_a_real_lhs_sweep(lhs_store):
@@ -161,28 +163,6 @@ def test_prcc_through_a_real_lhs_sweep(lhs_store):
     assert table.loc["k", "value"] > 0.8 and table.loc["k", "p_value"] < 0.001
     assert table.loc["g", "value"] < -0.8 and table.loc["g", "p_value"] < 0.001
     assert table.loc["u", "p_value"] > 0.001
-
-
-def test_elementary_effects_of_a_known_function():
-    """Morris (1991): on a linear function every elementary effect is the slope, so mu* = |slope|
-    (per whole range) and sigma = 0; an unused input has mu* = 0 (Campolongo et al. 2007).
-    f = 2 x1 + 3 log10(x2) + x4^2 with x1 in [0, 10] (uniform), x2 in [1, 100] (log-uniform): in
-    the unit cube the slopes are 20 and 6. Sample straight from SALib's Morris sampler (tests/sweep/test_morris.py uses our design)."""
-    from SALib.sample import morris as morris_sample
-
-    unit = morris_sample.sample({"num_vars": 4, "names": list("abcd"), "bounds": [[0, 1]] * 4}, 30, num_levels=4, seed=7)
-    x = np.column_stack([10 * unit[:, 0], 10 ** (2 * unit[:, 1]), unit[:, 2], unit[:, 3]])
-    y = 2 * x[:, 0] + 3 * np.log10(x[:, 1]) + x[:, 3] ** 2
-    facts = {"kind": "morris", "names": ["x1", "x2", "x3", "x4"], "num_levels": 4,
-             "parameters": {"x1": {"low": 0, "high": 10, "distribution": "uniform"},
-                            "x2": {"low": 1, "high": 100, "distribution": "log-uniform"},
-                            "x3": {"low": 0, "high": 1}, "x4": {"low": 0, "high": 1}}}
-    table = sensitivity.indices(facts, x, y, seed=1)
-    mu_star = table[table["index"] == "mu_star"].set_index("parameter")["value"]
-    sigma = table[table["index"] == "sigma"].set_index("parameter")["value"]
-    np.testing.assert_allclose([mu_star["x1"], mu_star["x2"], mu_star["x3"]], [20.0, 6.0, 0.0], atol=1e-9)
-    np.testing.assert_allclose([sigma["x1"], sigma["x2"], sigma["x3"]], 0.0, atol=1e-9)
-    assert mu_star["x4"] > 0 and sigma["x4"] > 0  # non-linear
 
 
 def test_fano_factor_of_two_stage_expression(single_point):

@@ -29,6 +29,7 @@ from sweep.store import layout
 from sweep.execute import session
 from sweep.store import integrity, lock
 from sweep.cli import app
+from support.stores import DATA, EVERYTHING, arrays, assert_same
 
 cli = CliRunner()
 
@@ -63,7 +64,6 @@ VARY = """
 k = [300.0, 400.0]
 h = [0.01, 0.02]
 """
-DATA = ("counts", "status", "events")
 
 
 @pytest.fixture(autouse=True)
@@ -87,26 +87,10 @@ def _write(folder: Path, *parts: str, name: str = "spec.toml") -> Path:
     return path
 
 
-def _arrays(path: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in (*DATA, "done", "time", "params")} | {
-        "species": np.asarray([str(v) for v in g["species"][:]]), "param": np.asarray([str(v) for v in g["param"][:]])}
-
-
-def _assert_same(got: dict[str, np.ndarray], want: dict[str, np.ndarray]) -> None:
-    assert got.keys() == want.keys()
-    for name in want:
-        np.testing.assert_array_equal(got[name], want[name], err_msg=name)
-
-
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory, scheduler):
-    """An undisturbed run of the spec, its arrays."""
-    folder = tmp_path_factory.mktemp("reference")
-    path = _write(folder, SPECIES_AB, PARAMETERS, REACTIONS, RUN, VARY)
-    spec = sweep.load(path, store=folder / "ref.zarr")
-    assert sweep.run(spec, scheduler=scheduler).complete
-    return path, _arrays(spec.store)
+def reference(reference_run):
+    """The spec file and every array of an undisturbed run of it."""
+    return reference_run("\n".join((RUN, VARY)), "\n".join((SPECIES_AB, PARAMETERS, REACTIONS)), EVERYTHING)
 
 
 def _half_done(folder: Path, spec_path: Path, scheduler: str) -> Path:
@@ -183,7 +167,7 @@ def test_an_edit_that_moves_no_byte_resumes_to_identical_results(case, reference
     result = cli.invoke(app, ["run", str(edited), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0, result.output
     assert "resuming: 8 of 16 tasks left" in result.output, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
 
 
 def test_a_store_from_before_fingerprints_is_checked_against_its_own_spec_text(reference, tmp_path, scheduler):
@@ -199,7 +183,7 @@ def test_a_store_from_before_fingerprints_is_checked_against_its_own_spec_text(r
         assert result.exit_code == 2 and REORDERINGS[case][1] in result.output, result.output
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
 
 
 # -- 2. a store exists only once it is whole ------------------------------------------------------
@@ -261,7 +245,7 @@ def _layout(path: Path) -> dict:
     attrs = dict(zarr.open_group(path, mode="r").attrs)
     attrs.pop("created")
     attrs.pop("store_id")
-    return {"attrs": attrs, "arrays": _arrays(path),
+    return {"attrs": attrs, "arrays": arrays(path, EVERYTHING),
             "files": sorted(str(p.relative_to(path)) for p in path.rglob("*") if "sweep.store.lock" not in p.name)}
 
 
@@ -302,14 +286,14 @@ def test_creation_interrupted_at_every_file_operation_recovers(how, every, refer
         _recreate(spec_path, target)  # the next run: identical to a store created in one go
         got = _layout(target)
         assert got["attrs"] == want["attrs"] and got["files"] == want["files"], step
-        _assert_same(got["arrays"], want["arrays"])
+        assert_same(got["arrays"], want["arrays"])
         step += every
     assert tried > 40 // every, tried  # the creation really was cut at each of its many file operations
     # a full run on stores cut early, midway and late gives the undisturbed bytes
     for cut in (1, 1 + every * (tried // 2), 1 + every * (tried - 1)):
         target = tmp_path / f"s{cut}.zarr"
         assert sweep.run(sweep.load(spec_path, store=target), scheduler=scheduler).complete
-        _assert_same(_arrays(target), expected)
+        assert_same(arrays(target, EVERYTHING), expected)
 
 
 @pytest.fixture
@@ -354,7 +338,7 @@ def test_a_disk_that_fills_during_creation_leaves_nothing_that_passes_for_a_stor
         _recreate(spec_path, target)  # room again: the next run rebuilds it whole
         got = _layout(target)
         assert got["attrs"] == want["attrs"] and got["files"] == want["files"], kib
-        _assert_same(got["arrays"], want["arrays"])
+        assert_same(got["arrays"], want["arrays"])
         subprocess.run(["rm", "-rf", str(target)], check=True)  # a tmpfs cannot shrink below what it holds
     assert failed_sizes >= 5, failed_sizes
     # through the command line: a clear refusal, then a run that completes with the undisturbed bytes
@@ -366,7 +350,7 @@ def test_a_disk_that_fills_during_creation_leaves_nothing_that_passes_for_a_stor
     remount("64m")
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
 
 
 # -- 3. damage is found, named and mended ---------------------------------------------------------
@@ -414,7 +398,7 @@ def test_verify_finds_damaged_chunks_and_a_rerun_restores_the_bytes(case, refere
     assert f"{len(found)} task(s) will be recomputed" in result.output
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0 and f"resuming: {len(found)} of 16 tasks left" in result.output, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
     result = cli.invoke(app, ["status", str(target), "--verify"])
     assert result.exit_code == 0 and "matches its checksum" in result.output, result.output
 
@@ -443,7 +427,7 @@ def test_damaged_coordinates_are_found_and_rewritten_from_the_spec(case, via, re
         result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
         assert result.exit_code == 0 and "nothing to do" in result.output, result.output
     assert f"rewrote the damaged coordinate '{name}' from the spec" in result.output, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
     import xarray as xr
 
     ds = xr.open_zarr(target)  # the user's own way in works again
@@ -469,7 +453,7 @@ def test_a_damaged_completion_record_is_rebuilt_from_verified_chunks(case, refer
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0, result.output
     assert "the completion record was damaged: rebuilt it from the chunks, 16 tasks verified" in result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
     assert cli.invoke(app, ["status", str(target), "--verify"]).exit_code == 0
 
 
@@ -484,7 +468,7 @@ def test_a_completion_record_rebuilt_from_chunks_leaves_missing_and_damaged_task
     assert result.exit_code == 1 and "14 tasks verified complete" in result.output, result.output
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0 and "resuming: 2 of 16 tasks left" in result.output, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
 
 
 def test_a_garbled_root_zarr_json_is_named_in_status_and_run(reference, tmp_path, scheduler):
@@ -514,7 +498,7 @@ def test_a_store_from_before_checksums_still_opens_resumes_and_says_what_verify_
     store.consolidate(target)
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0 and "resuming: 8 of 16 tasks left" in result.output, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)
     result = cli.invoke(app, ["status", str(target), "--verify"])
     assert result.exit_code == 0, result.output
     assert "written before chunks carried checksums" in result.output, result.output
@@ -611,4 +595,4 @@ def test_a_real_run_signalled_as_each_file_of_creation_appears_resumes_identical
         assert "interrupted" in err, err
     result = cli.invoke(app, ["run", str(spec_path), "--store", str(target), "--scheduler", scheduler])
     assert result.exit_code == 0, result.output
-    _assert_same(_arrays(target), expected)
+    assert_same(arrays(target, EVERYTHING), expected)

@@ -27,9 +27,7 @@ import numpy as np
 import psutil
 import pytest
 import zarr
-from distributed import LocalCluster
 
-import sweep
 from support.models import DIMERISING
 from support.stores import arrays
 
@@ -52,14 +50,9 @@ NOTHING_LOST = "interrupted before any task ran; nothing was lost"
 
 
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory, spec_writer):
-    """The spec and the arrays of one undisturbed run (through a threaded cluster: quick, and another route)."""
-    folder = tmp_path_factory.mktemp("ref")
-    path = spec_writer(folder, BODY, model=DIMERISING)
-    spec = sweep.load(path, store=folder / "ref.zarr")
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster:
-        assert sweep.run(spec, scheduler=cluster.scheduler_address).complete
-    return path, arrays(spec.store, DATA)
+def reference(reference_run):
+    """The spec file and the arrays of one undisturbed run."""
+    return reference_run(BODY, DIMERISING)
 
 
 def _done(store: Path) -> int:

@@ -20,14 +20,12 @@ from urllib.parse import urlsplit
 import numpy as np
 import psutil
 import pytest
-import zarr
 from distributed import LocalCluster
 from distributed.security import Security
-from typer.testing import CliRunner
 
-from sweep.cli import app
 from sweep.execute import local
 from support.models import DIMERISING
+from support.stores import assert_identical
 
 # 16 tasks of a few hundredths of a second: the cluster's start dominates
 BODY = """
@@ -42,9 +40,7 @@ samples = 5
 k = [300.0, 400.0]
 h = [0.01, 0.02]
 """
-DATA = ("counts", "status", "events")
 ATTEMPT_SECONDS = 5  # each connection attempt of the other user gives up after this
-runner = CliRunner()
 
 # The other user: for each port, try to speak Dask to it without the run's certificate, three
 # ways, all at once; with "credentials", also with them (the control: the attempts are real).
@@ -130,32 +126,9 @@ OTHER_USER = textwrap.dedent("""
 
 
 @pytest.fixture(scope="module")
-def spec_path(tmp_path_factory, spec_writer) -> Path:
-    return spec_writer(tmp_path_factory.mktemp("spec"), BODY, model=DIMERISING)
-
-
-@pytest.fixture(scope="module")
-def plain_reference(spec_path, tmp_path_factory) -> dict[str, np.ndarray]:
-    """The sweep through a plain threaded cluster (no TLS), as tests/sweep/test_faults.py runs it."""
-    store = tmp_path_factory.mktemp("plain") / "plain.zarr"
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0",
-                      silence_logs=logging.CRITICAL) as cluster:
-        result = runner.invoke(app, ["run", str(spec_path), "--store", str(store), "--scheduler",
-                                     cluster.scheduler_address])
-    assert result.exit_code == 0, result.output
-    return _arrays(store)
-
-
-def _arrays(store: Path) -> dict[str, np.ndarray]:
-    g = zarr.open_group(store, mode="r")
-    assert g["done"][:].all()
-    return {name: g[name][:] for name in DATA}
-
-
-def _assert_same(store: Path, expected: dict[str, np.ndarray]) -> None:
-    got = _arrays(store)
-    for name in DATA:
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
+def reference(reference_run) -> tuple[Path, dict[str, np.ndarray]]:
+    """The spec file and the arrays of a run with no TLS and no Dask (in this process)."""
+    return reference_run(BODY, DIMERISING)
 
 
 def _sweep(*args: str, env: dict[str, str] | None = None) -> subprocess.CompletedProcess:
@@ -190,12 +163,13 @@ def _sigint_blocked(pid: int) -> bool:
     return bool(int(fields["SigBlk"], 16) & (1 << (signal.SIGINT - 1)))
 
 
-def test_a_run_through_the_local_tls_cluster_gives_the_same_bytes(spec_path, plain_reference, tmp_path):
+def test_a_run_through_the_local_tls_cluster_gives_the_same_bytes(reference, tmp_path):
+    spec_path, expected = reference
     store = tmp_path / "tls.zarr"
     result = _sweep("run", str(spec_path), "--store", str(store), "--workers", "2")
     assert result.returncode == 0, result.stdout + result.stderr
     assert "Dask dashboard: http://127.0.0.1:" in result.stdout
-    _assert_same(store, plain_reference)
+    assert_identical(store, expected)
 
 
 def test_only_the_sweep_s_own_client_can_submit_work(tmp_path):
@@ -246,8 +220,8 @@ def tls_scheduler(tmp_path):
         yield cluster.scheduler_address, credentials
 
 
-def test_an_existing_tls_scheduler_with_credentials_from_dask_config(spec_path, plain_reference, tls_scheduler,
-                                                                     tmp_path):
+def test_an_existing_tls_scheduler_with_credentials_from_dask_config(reference, tls_scheduler, tmp_path):
+    spec_path, expected = reference
     address, credentials = tls_scheduler
     assert address.startswith("tls://")
     store = tmp_path / "existing.zarr"
@@ -261,4 +235,4 @@ def test_an_existing_tls_scheduler_with_credentials_from_dask_config(spec_path, 
               "DASK_DISTRIBUTED__COMM__TLS__CLIENT__KEY": credentials["key"]}
     result = _sweep("run", str(spec_path), "--store", str(store), "--scheduler", address, env=config)
     assert result.returncode == 0, result.stdout + result.stderr
-    _assert_same(store, plain_reference)
+    assert_identical(store, expected)

@@ -21,6 +21,7 @@ import sweep
 from sweep import design as designs
 from sweep.analysis import sensitivity
 from sweep.cli import app
+from support.sensitivity_conformance import SensitivityConformance
 
 Z_999 = 3.29  # two-sided normal quantile for alpha = 0.001
 
@@ -62,18 +63,22 @@ def _indices(table, index: str) -> dict[str, float]:
     return dict(zip(rows["parameter"], rows["value"]))
 
 
-def test_linear_function_gives_slope_times_range():
-    """y = 2 x1 + 3 log10(x2) + 0 x3 on our Morris design (p = 6 levels): in the unit cube the
-    slopes are 2 x 10 = 20 and 3 x 2 = 6 (the ranges: x1 over 10, log10 x2 over 2 decades), so
-    every elementary effect is exactly that (Morris 1991); x3 is unused, mu* = 0."""
-    d = _parsed(LINEAR, {"x1": 0.0, "x2": 1.0, "x3": 0.0})
-    points = designs.expand(d, 5)
-    y = 2 * points[:, 0] + 3 * np.log10(points[:, 1])
-    table = sensitivity.indices(designs.describe(d), points, y, seed=1)
-    mu_star, mu, sigma = (_indices(table, i) for i in ("mu_star", "mu", "sigma"))
-    np.testing.assert_allclose([mu_star["x1"], mu_star["x2"], mu_star["x3"]], [20.0, 6.0, 0.0], atol=1e-9)
-    np.testing.assert_allclose([mu["x1"], mu["x2"]], [20.0, 6.0], atol=1e-9)
-    np.testing.assert_allclose(list(sigma.values()), 0.0, atol=1e-9)
+class TestMorris(SensitivityConformance):
+    method, main_index = "morris", "mu_star"
+    design = {"kind": "morris", "trajectories": 10, "levels": 4}
+
+    def test_known_result(self):
+        """y = 2 x1 + 3 log10(x2) + 0 x3 on our Morris design (p = 6 levels): in the unit cube the
+        slopes are 2 x 10 = 20 and 3 x 2 = 6 (the ranges: x1 over 10, log10 x2 over 2 decades), so
+        every elementary effect is exactly that (Morris 1991); x3 is unused, mu* = 0."""
+        d = _parsed(LINEAR, {"x1": 0.0, "x2": 1.0, "x3": 0.0})
+        points = designs.expand(d, 5)
+        y = 2 * points[:, 0] + 3 * np.log10(points[:, 1])
+        table = sensitivity.indices(designs.describe(d), points, y, seed=1)
+        mu_star, mu, sigma = (_indices(table, i) for i in ("mu_star", "mu", "sigma"))
+        np.testing.assert_allclose([mu_star["x1"], mu_star["x2"], mu_star["x3"]], [20.0, 6.0, 0.0], atol=1e-9)
+        np.testing.assert_allclose([mu["x1"], mu["x2"]], [20.0, 6.0], atol=1e-9)
+        np.testing.assert_allclose(list(sigma.values()), 0.0, atol=1e-9)
 
 
 def test_nonlinear_effects_match_a_direct_computation():

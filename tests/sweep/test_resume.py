@@ -28,7 +28,7 @@ import sweep
 from sweep.cli import app
 from sweep.store.lock import LOCK_NAME
 from support.models import DIMERISING
-from support.stores import arrays, assert_identical
+from support.stores import assert_identical
 
 # 48 tasks of a few tenths of a second each: several seconds on 2 workers
 MODEL = DIMERISING
@@ -53,24 +53,15 @@ runner = CliRunner()
 
 
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory, spec_writer):
+def reference(reference_run):
     """The spec file and the arrays of one undisturbed run."""
-    folder = tmp_path_factory.mktemp("ref")
-    path = spec_writer(folder, BODY, model=MODEL)
-    spec = sweep.load(path, store=folder / "ref.zarr")
-    summary = sweep.run(spec, workers=2)
-    assert summary.complete
-    return path, arrays(spec.store, DATA)
+    return reference_run(BODY, MODEL)
 
 
 @pytest.fixture(scope="module")
-def slow_reference(tmp_path_factory, spec_writer):
-    """Like ``reference``, for the tests that signal a running sweep."""
-    folder = tmp_path_factory.mktemp("slow")
-    path = spec_writer(folder, SLOW_BODY, model=MODEL)
-    spec = sweep.load(path, store=folder / "ref.zarr")
-    assert sweep.run(spec, workers=2).complete
-    return path, arrays(spec.store, DATA)
+def slow_reference(reference_run):
+    """Like ``reference``, for the tests that signal a running sweep (on 2 workers: ten times the work)."""
+    return reference_run(SLOW_BODY, MODEL, workers=2)
 
 
 def _done_count(store: Path) -> int:

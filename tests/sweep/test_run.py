@@ -8,121 +8,61 @@ import logging
 import numpy as np
 import pytest
 import xarray as xr
-import zarr
 from distributed import LocalCluster
 from scipy import stats
 
 import sweep
 from sweep.errors import StoreError
-
-DIMER = """
-[model.species]
-A = 30
-B = 0
-[model.parameters]
-c1 = 0.02
-c2 = 0.5
-[model.reactions]
-bind = { reaction = "2 A -> B", rate = "c1" }
-split = { reaction = "B -> 2 A", rate = "c2" }
-"""
-
-BODY = """
-[run]
-replicates = 24
-replicates_per_task = {per_task}
-seed = 7
-[time]
-end = 4.0
-samples = 9
-[design.vary]
-c1 = [0.01, 0.05]
-c2 = [0.2, 1.0]
-"""
+from support.backend_conformance import BackendConformance
 
 
-@pytest.fixture(scope="module")
-def reference(tmp_path_factory, spec_writer):
-    """One undisturbed 2-worker run that several tests compare against."""
-    folder = tmp_path_factory.mktemp("reference")
-    spec = sweep.load(spec_writer(folder, BODY.format(per_task=8), model=DIMER), store=folder / "ref.zarr")
-    summary = sweep.run(spec, workers=2)
-    return spec, summary
+class TestLocalCluster(BackendConformance):
+    """``sweep run`` with no cluster flags: a local Dask cluster of worker processes."""
+
+    @pytest.fixture(scope="class")
+    def route(self):
+        return lambda spec: [sweep.run(spec, workers=2)]
+
+    def test_store_contract(self, ran):
+        """DESIGN.md's store contract: names, dims, dtypes and attributes via plain xarray."""
+        spec, (summary,) = ran
+        ds = xr.open_zarr(summary.store)
+        dims = {name: ds[name].dims for name in ("counts", "params", "status", "events", "done", "time", "species",
+                                                 "param")}
+        assert dims == {
+            "counts": ("point", "replicate", "time", "species"), "params": ("point", "param"),
+            "status": ("point", "replicate"), "events": ("point", "replicate"), "done": ("point", "block"),
+            "time": ("time",), "species": ("species",), "param": ("param",),
+        }
+        assert ds["counts"].shape == (4, 24, 9, 2) and np.issubdtype(ds["counts"].dtype, np.integer)
+        assert ds["counts"].encoding["chunks"] == (1, 8, 9, 2)  # one chunk = one task
+        assert list(ds["species"].values) == ["A", "B"] and list(ds["param"].values) == ["c1", "c2"]
+        np.testing.assert_array_equal(ds["params"].values, [[0.01, 0.2], [0.01, 1.0], [0.05, 0.2], [0.05, 1.0]])
+        np.testing.assert_allclose(ds["time"].values, np.linspace(0, 4, 9))
+        assert bool(ds["done"].all()) and summary.tasks_run == 12
+        assert (ds["status"].values == 0).all()
+        attrs = ds.attrs
+        assert attrs["spec"] == spec.text
+        assert attrs["spec_sha256"] == hashlib.sha256(spec.text.encode() + b"\0").hexdigest()
+        assert attrs["method"] == "direct" and attrs["root_seed"] == 7
+        assert {"stochsweep", "numpy", "numba", "zarr"} <= set(attrs["versions"])
+
+    def test_store_of_another_spec_is_refused(self, ran, tmp_path):
+        spec, _ = ran
+        path = tmp_path / "other.toml"
+        path.write_text(spec.path.read_text(encoding="utf-8").replace("seed = 7", "seed = 8"), encoding="utf-8")
+        with pytest.raises(StoreError, match=r"different spec(.|\n)*run.seed: 7 -> 8"):
+            sweep.run(sweep.load(path, store=spec.store), workers=1)
 
 
-def _arrays(path):
-    g = zarr.open_group(path, mode="r")
-    return {name: g[name][:] for name in ("counts", "status", "events", "done", "params")}
+class TestExistingScheduler(BackendConformance):
+    """``sweep run --scheduler ADDRESS``: a running cluster (one worker process) the run does not own."""
 
-
-def test_store_contract(reference):
-    """DESIGN.md's store contract: names, dims, dtypes and attributes via plain xarray."""
-    spec, summary = reference
-    ds = xr.open_zarr(summary.store)
-    dims = {name: ds[name].dims for name in ("counts", "params", "status", "events", "done", "time", "species", "param")}
-    assert dims == {
-        "counts": ("point", "replicate", "time", "species"), "params": ("point", "param"),
-        "status": ("point", "replicate"), "events": ("point", "replicate"), "done": ("point", "block"),
-        "time": ("time",), "species": ("species",), "param": ("param",),
-    }
-    assert ds["counts"].shape == (4, 24, 9, 2) and np.issubdtype(ds["counts"].dtype, np.integer)
-    assert ds["counts"].encoding["chunks"] == (1, 8, 9, 2)  # one chunk = one task
-    assert list(ds["species"].values) == ["A", "B"] and list(ds["param"].values) == ["c1", "c2"]
-    np.testing.assert_array_equal(ds["params"].values, [[0.01, 0.2], [0.01, 1.0], [0.05, 0.2], [0.05, 1.0]])
-    np.testing.assert_allclose(ds["time"].values, np.linspace(0, 4, 9))
-    assert bool(ds["done"].all()) and summary.tasks_run == 12
-    assert (ds["status"].values == 0).all()
-    counts = ds["counts"].values
-    assert (counts[..., 0] + 2 * counts[..., 1] == 30).all()  # mass conserved: A + 2B
-    attrs = ds.attrs
-    assert attrs["spec"] == spec.text
-    assert attrs["spec_sha256"] == hashlib.sha256(spec.text.encode() + b"\0").hexdigest()
-    assert attrs["method"] == "direct" and attrs["root_seed"] == 7
-    assert {"stochsweep", "numpy", "numba", "zarr"} <= set(attrs["versions"])
-
-
-def test_same_bytes_for_any_workers_and_block_size(reference, tmp_path, spec_file):
-    """Seeds per (point, replicate): worker count and replicates per task change nothing."""
-    _, ref = reference
-    expected = _arrays(ref.store)
-    one = sweep.load(spec_file(BODY.format(per_task=8), model=DIMER), store=tmp_path / "one.zarr")
-    sweep.run(one, workers=1)
-    other = sweep.load(spec_file(BODY.format(per_task=5), model=DIMER, name="b.toml"), store=tmp_path / "b.zarr")
-    sweep.run(other, workers=2)
-    for got in (_arrays(one.store), _arrays(other.store)):
-        for name in ("counts", "status", "events", "params"):
-            np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-
-
-def test_existing_scheduler_and_resume(reference, tmp_path, spec_file):
-    """--scheduler ADDRESS uses a running cluster; a rerun only does what is not done."""
-    _, ref = reference
-    spec = sweep.load(spec_file(BODY.format(per_task=8), model=DIMER), store=tmp_path / "s.zarr")
-    with LocalCluster(n_workers=1, threads_per_worker=1, host="127.0.0.1", dashboard_address=":0",
-                      silence_logs=logging.ERROR) as cluster:
-        first = sweep.run(spec, scheduler=cluster.scheduler_address)
-        assert first.tasks_run == 12
-        again = sweep.run(spec, scheduler=cluster.scheduler_address)
-        assert again.tasks_run == 0 and again.tasks_skipped == 12
-        # forget three tasks and delete one of their chunks: a rerun redoes exactly those
-        g = zarr.open_group(spec.store, mode="r+")
-        done = g["done"][:]
-        done[1, 2] = done[3, 0] = done[0, 1] = False
-        g["done"][:] = done
-        g["counts"][1, 16:24] = -1
-        third = sweep.run(spec, scheduler=cluster.scheduler_address)
-        assert third.tasks_run == 3
-    got, expected = _arrays(spec.store), _arrays(ref.store)
-    for name in ("counts", "status", "events", "done"):
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-
-
-def test_store_of_another_spec_is_refused(reference, spec_file):
-    _, ref = reference
-    other = sweep.load(spec_file(BODY.format(per_task=8).replace("seed = 7", "seed = 8"), model=DIMER),
-                       store=ref.store)
-    with pytest.raises(StoreError, match=r"different spec(.|\n)*run.seed: 7 -> 8"):
-        sweep.run(other, workers=1)
+    @pytest.fixture(scope="class")
+    def route(self):
+        with LocalCluster(n_workers=1, threads_per_worker=1, host="127.0.0.1", dashboard_address=":0",
+                          silence_logs=logging.ERROR) as cluster:
+            yield lambda spec: [sweep.run(spec, scheduler=cluster.scheduler_address)]
 
 
 def test_parameters_reach_each_point(tmp_path, spec_file):

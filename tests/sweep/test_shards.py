@@ -20,7 +20,6 @@ from pathlib import Path
 import numpy as np
 import psutil
 import pytest
-import zarr
 from typer.testing import CliRunner
 
 import sweep
@@ -32,7 +31,8 @@ from sweep.execute.execution import parse_shard
 from sweep.cli import app
 from sweep.store.lock import LOCK_NAME
 from support.models import DIMERISING
-from support.stores import arrays
+from support.backend_conformance import BackendConformance, assert_complete_and_tidy
+from support.stores import assert_identical
 
 # 48 tasks of a few tenths of a second each (the model of test_resume.py)
 MODEL = DIMERISING
@@ -54,24 +54,23 @@ runner = CliRunner()
 
 
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory, spec_writer):
-    """The spec file and the arrays of one undisturbed local Dask run."""
-    folder = tmp_path_factory.mktemp("shards-ref")
-    path = spec_writer(folder, BODY, model=MODEL)
-    spec = sweep.load(path, store=folder / "ref.zarr")
-    assert sweep.run(spec, workers=2).complete
-    return path, arrays(spec.store, DATA)
+def reference(reference_run):
+    """The spec file and the arrays of one undisturbed run."""
+    return reference_run(BODY, MODEL)
 
 
 def _assert_identical_and_tidy(path: Path, expected: dict[str, np.ndarray]) -> None:
-    got = arrays(path, DATA)
-    for name in DATA:
-        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
-    assert zarr.open_group(path, mode="r")["done"][:].all()  # folded into `done` itself
-    assert store.read_done(path).all()
-    leftovers = sorted(p.name for p in records.folder(path).iterdir()) if records.folder(path).is_dir() else []
-    assert leftovers == [], leftovers
-    assert not (path / LOCK_NAME).exists() and not list(path.rglob("*.partial"))
+    assert_identical(path, expected, DATA)  # the shards' records folded into `done` itself
+    assert_complete_and_tidy(path)
+
+
+class TestInProcessShards(BackendConformance):
+    """``sweep run --shard I/N`` with no Dask: here two shards one after the other in this process,
+    the second folding both records into ``done``."""
+
+    @pytest.fixture(scope="class")
+    def route(self):
+        return lambda spec: [sweep.run_shard(spec, 1, 2), sweep.run_shard(spec, 2, 2)]
 
 
 def _shard_cmd(spec_path: Path, store_path: Path, which: str, *extra: str) -> list[str]:
