@@ -19,20 +19,10 @@ import sweep
 from sweep import store
 from sweep.store import records
 from sweep.store.lock import LOCK_NAME
+from support.models import PAIRING
 from support.stores import DATA, arrays
 
-# 30 A pairing reversibly into B: every state keeps A + 2B = 30, a cheap check of each count
-MODEL = """
-[model.species]
-A = 30
-B = 0
-[model.parameters]
-c1 = 0.02
-c2 = 0.5
-[model.reactions]
-bind = { reaction = "2 A -> B", rate = "c1" }
-split = { reaction = "B -> 2 A", rate = "c2" }
-"""
+MODEL = PAIRING
 BODY = """
 [run]
 replicates = 24

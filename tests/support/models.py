@@ -15,3 +15,16 @@ make = { reaction = "0 -> A", rate = "k" }
 loss = { reaction = "A -> 0", rate = "g" }
 pair = { reaction = "2 A -> B", rate = "h" }
 """
+
+# 30 A pairing reversibly into B: every state keeps A + 2B = 30, a cheap check of each count
+PAIRING = """
+[model.species]
+A = 30
+B = 0
+[model.parameters]
+c1 = 0.02
+c2 = 0.5
+[model.reactions]
+bind = { reaction = "2 A -> B", rate = "c1" }
+split = { reaction = "B -> 2 A", rate = "c2" }
+"""

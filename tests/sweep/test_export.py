@@ -16,18 +16,9 @@ from typer.testing import CliRunner
 import sweep
 from sweep.cli import app
 from sweep.errors import SpecError
+from support.models import PAIRING
 
-DIMER = """
-[model.species]
-A = 30
-B = 0
-[model.parameters]
-c1 = 0.02
-c2 = 0.5
-[model.reactions]
-bind = { reaction = "2 A -> B", rate = "c1" }
-split = { reaction = "B -> 2 A", rate = "c2" }
-"""
+DIMER = PAIRING
 BODY = """
 [run]
 replicates = 24
