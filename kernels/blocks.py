@@ -28,7 +28,7 @@ from typing import TYPE_CHECKING, Sequence
 import numpy as np
 
 import kernels
-from kernels.changes import Schedule, no_watch
+from kernels.interventions import Schedule, no_watch
 from kernels.network import KernelResult, Network, Trace
 from kernels.rng import Streams, seed_states
 

@@ -15,7 +15,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 import kernels
-from kernels.changes import Schedule
+from kernels.interventions import Schedule
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
 from sweep.model.observables import Readout

@@ -16,7 +16,7 @@ A model file (or a spec, whose lists add to its model's) lists them::
     repeat = false                  # once (the default), or each time it becomes true again
 
 This module only reads and checks what is written, against the model's names; the values a
-parameter gives at a point are checked, and each point's ``kernels.changes.Schedule`` built, by
+parameter gives at a point are checked, and each point's ``kernels.interventions.Schedule`` built, by
 ``sweep.model.schedule``. A condition is read with Python's parser and checked node by node,
 never evaluated.
 """

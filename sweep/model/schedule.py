@@ -1,4 +1,4 @@
-"""One point's interventions as the kernels take them: a ``kernels.changes.Schedule``.
+"""One point's interventions as the kernels take them: a ``kernels.interventions.Schedule``.
 
 ``build`` is pure: the model, its checked interventions (``sweep.model.changes``), the spec's
 derived parameters and one point's values in, a Schedule out. It resolves parameter-valued
@@ -24,7 +24,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 
-from kernels import changes as kc
+from kernels import interventions as kc
 from sweep.errors import SpecError
 from sweep.model import expr as expressions
 from sweep.model.changes import Change, Intervention, Step, Trigger, bounds_problem, referenced

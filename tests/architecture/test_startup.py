@@ -27,7 +27,8 @@ print(json.dumps(sorted(m for m in %s if m in sys.modules)))
 """ % repr(HEAVY)
 
 
-@pytest.mark.parametrize("args", [["--help"], ["check", "configs/reporter.toml"], ["run", "--help"]])
+@pytest.mark.parametrize("args", [["--help"], ["check", "configs/reporter.toml"], ["run", "--help"],
+                                  ["check", "configs/reporter_induction.toml"]])  # interventions: schedules built
 def test_light_commands_import_no_heavy_library(args):
     out = subprocess.run([sys.executable, "-c", PROBE, json.dumps(args)], capture_output=True, text=True,
                          cwd=ROOT, timeout=120)
