@@ -20,9 +20,13 @@ changes at a point (nothing makes or uses it there) is not flagged.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import pandas as pd
-import xarray as xr
+
+if TYPE_CHECKING:  # imported where used: a run asks APPROXIMATE after every sweep, and pandas costs 0.5 s
+    import pandas as pd
+    import xarray as xr
 
 LOW_COPY = 10
 LOW_SHARE = 0.05
@@ -37,6 +41,8 @@ def lost_replicates(ds: xr.Dataset) -> pd.DataFrame:
 
     Columns: point, run (replicates with any result), finished, capped (status 1), numerical (status 2).
     """
+    import pandas as pd
+
     status = ds["status"].values
     run = (status >= 0).sum(axis=1)
     capped = (status == 1).sum(axis=1)

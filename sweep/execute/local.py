@@ -90,10 +90,38 @@ def _open(n: int) -> tuple[LocalCluster, Client]:
 
 
 def _close(cluster: LocalCluster, client: Client) -> None:
+    """Close the client, end the worker processes, then close the scheduler and nannies.
+
+    When this runs, the run loop has recorded every completion, so nothing a worker still holds
+    is needed: a task in flight is never marked done, and the chunk it may have half-written is
+    a temporary file its next writer removes. A graceful worker close took 0.2-0.6 s of a
+    seconds-long demo; ending the processes takes a few ms.
+    """
+    processes = [p for p in (_process_of(nanny) for nanny in cluster.workers.values()) if p is not None]
     try:
         client.close()
     finally:
-        cluster.close()
+        with _quiet("distributed"):  # the scheduler logs each lost worker connection at INFO
+            for process in processes:
+                with suppress(OSError, ValueError):
+                    process.kill()
+            cluster.close()
+
+
+def _process_of(nanny) -> multiprocessing.Process | None:
+    """The worker process a nanny runs, if it is running (distributed keeps it two levels down)."""
+    return getattr(getattr(nanny, "process", None), "process", None)
+
+
+@contextmanager
+def _quiet(name: str) -> Iterator[None]:
+    logger = logging.getLogger(name)
+    level = logger.level
+    logger.setLevel(logging.CRITICAL)
+    try:
+        yield
+    finally:
+        logger.setLevel(level)
 
 
 def _started(start: Callable[[], tuple[LocalCluster, Client]]) -> tuple[LocalCluster, Client]:

@@ -19,7 +19,7 @@ from kernels.interventions import Schedule
 from kernels.network import STATUS_EVENT_CAP, STATUS_NUMERICAL, Network
 from kernels.rng import Streams
 from sweep.model.observables import Readout
-from sweep.store.chunks import group_commit
+from sweep.store.chunks import group_commit, thread_lock_for_blosc
 from sweep import store
 
 
@@ -79,6 +79,7 @@ class TaskResult:
 def run_task(task: TaskInput) -> TaskResult:
     """Simulate and write every block of one task. Idempotent: a rerun writes the same bytes."""
     began = time.perf_counter()
+    thread_lock_for_blosc()  # before the first chunk is encoded: a killed worker then leaves no semaphore
     kernel = kernels.get(task.method)
     options = dict(task.options)
     done, in_kernel = [], 0.0

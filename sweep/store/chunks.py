@@ -60,6 +60,24 @@ def _fsync_all(paths) -> None:
         pass  # re-raises the first OSError
 
 
+def thread_lock_for_blosc() -> None:
+    """Let numcodecs guard Blosc's global state with a thread lock instead of a multiprocessing one.
+
+    Its default is a named POSIX semaphore, which multiprocessing's resource tracker must remove
+    if this process is killed, and warns about at the client's exit. A local run ends its workers
+    with SIGKILL (``sweep.execute.local._close``), and Slurm may too. Blosc's state belongs to
+    this process alone and its tasks run in threads, so a thread lock is the guard it needs.
+    Called by every task (``sweep.execute.worker.run_task``), before any chunk is encoded,
+    through this writer or zarr's.
+    """
+    import threading
+
+    from numcodecs import blosc
+
+    if not getattr(blosc, "_MUTEX_IS_INIT", True):
+        blosc._MUTEX, blosc._MUTEX_IS_INIT = threading.Lock(), True
+
+
 @dataclass
 class _Array:
     """What encoding one array's chunk needs: chunk shape, dtype, fill value, codecs, key layout."""

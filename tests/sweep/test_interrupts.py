@@ -282,6 +282,24 @@ API_USER = textwrap.dedent("""
 """)
 
 
+def test_an_undisturbed_run_ends_its_workers_quietly(reference, tmp_path, start):
+    """The workers are ended with SIGKILL once every completion is recorded (sweep.execute.local._close):
+    no process is left, stderr stays empty (no lost-worker log, no leaked-semaphore warning from
+    multiprocessing's resource tracker) and the bytes are those of an undisturbed run."""
+    spec, expected = reference
+    store = tmp_path / "quiet.zarr"
+    run = start(spec, store)
+    status = run.proc.wait(timeout=300)
+    for reader in run.readers:
+        reader.join(timeout=EXIT_SECONDS)
+    assert status == 0, "\n".join(run.out + run.err)
+    assert run.messages() == [], run.err
+    run.assert_nothing_left()
+    got = arrays(store, DATA)
+    for name in DATA:
+        np.testing.assert_array_equal(got[name], expected[name], err_msg=name)
+
+
 def test_ctrl_c_while_starting_leaves_nothing_in_a_python_session(reference, tmp_path):
     spec, _ = reference
     script = tmp_path / "api_user.py"
