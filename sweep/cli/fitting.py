@@ -28,7 +28,7 @@ def fit(
     simulate_data: Annotated[str | None, typer.Option(metavar="NAME=VALUE,...", help="Write demo data to [fit].data from these true values, then stop.")] = None,
     cells: Annotated[int, typer.Option(min=2, help="With --simulate-data: cells per condition and time.")] = 200,
     data_seed: Annotated[int, typer.Option(help="With --simulate-data: seed of the data's simulation.")] = 1,
-    species: Annotated[str | None, typer.Option(help="With --simulate-data: species to write, comma-separated (default: the last species).")] = None,
+    species: Annotated[str | None, typer.Option(help="With --simulate-data: species or observables to write, comma-separated (default: the last species).")] = None,
     cluster: Annotated[clustering.ClusterKind | None, typer.Option(help="Run the Dask workers as batch jobs for the whole fit (settings: --profile, then the fit spec's \\[cluster] table, then the flags below).")] = None,
     profile: Annotated[Path | None, typer.Option(help="With --cluster: site profile, a TOML file with a \\[cluster] table (see configs/slurm_site_example.toml).")] = None,
     partition: Annotated[str | None, typer.Option(help="With --cluster: Slurm partition.")] = None,

@@ -5,9 +5,10 @@
     60,low,protein,87
     ...
 
-``species`` (or ``observable``) names a species of the model, ``condition`` one of the fit
-spec's ``[fit.conditions]``, ``time`` one of the model's sample times (``[time]``), ``value`` a
-count >= 0. Each bad row is refused with the file, the row (the file's line number) and the column,
+``species`` (or ``observable``) names a species of the model or one of its ``[observables]``
+(a reporter's intensity, a sum of species), ``condition`` one of the fit spec's
+``[fit.conditions]``, ``time`` one of the model's sample times (``[time]``), ``value`` a count
+>= 0 for a species, any finite number for an observable. Each bad row is refused with the file, the row (the file's line number) and the column,
 and the fix; so is a condition declared in the spec that has no rows.
 """
 
@@ -36,8 +37,8 @@ class Observed:
 
 
 def read(path: Path, spec_source: str, species: tuple[str, ...], times: tuple[float, ...],
-         conditions: tuple[str, ...]) -> Observed:
-    """Validate the data file and group its values by (time, condition, species).
+         conditions: tuple[str, ...], observables: tuple[str, ...] = ()) -> Observed:
+    """Validate the data file and group its values by (time, condition, species or observable).
 
     Raises
     ------
@@ -61,14 +62,15 @@ def read(path: Path, spec_source: str, species: tuple[str, ...], times: tuple[fl
     where = _header(parsed[0], lines[0][0], src)
     groups: dict[tuple[str, int, str], list[float]] = {}
     for (number, _), cells in zip(lines[1:], parsed[1:]):
-        key, value = _row(cells, number, where, src, species, times, conditions)
+        key, value = _row(cells, number, where, src, species, observables, times, conditions)
         groups.setdefault(key, []).append(value)
     seen = {c for c, _, _ in groups}
     for name in conditions:
         if name not in seen:
             raise SpecError(src, "column condition", f"no rows for condition {name!r} of {spec_source} [fit.conditions]",
                             fix=f"add its cells to {path.name}, or remove {name!r} from [fit.conditions]")
-    order = sorted(groups, key=lambda k: (conditions.index(k[0]), k[1], species.index(k[2])))
+    names = species + observables
+    order = sorted(groups, key=lambda k: (conditions.index(k[0]), k[1], names.index(k[2])))
     components = tuple(Component(times[t], c, s, np.sort(np.array(groups[(c, t, s)], dtype=np.float64)))
                        for c, t, s in order)
     return Observed(components, hashlib.sha256(raw).hexdigest(), len(lines) - 1)
@@ -87,15 +89,17 @@ def _header(cells: list[str], number: int, src: str) -> dict[str, int]:
     return {name: header.index(name) for name in COLUMNS}
 
 
-def _row(cells, number, where, src, species, times, conditions) -> tuple[tuple[str, int, str], float]:
+def _row(cells, number, where, src, species, observables, times, conditions) -> tuple[tuple[str, int, str], float]:
     if len(cells) != len(where):
         raise SpecError(src, f"row {number}", f"has {len(cells)} values, the header {len(where)} columns",
                         fix="every row needs a time, a condition, a species and a value")
     get = {name: cells[i].strip() for name, i in where.items()}
     name = get["species"]
-    if name not in species:
-        raise SpecError(src, f"row {number}, column species", "unknown species", name,
-                        f"species of the model: {', '.join(species)}")
+    if name not in species and name not in observables:
+        known = f"species of the model: {', '.join(species)}"
+        raise SpecError(src, f"row {number}, column species", "unknown species or observable", name,
+                        known + (f"; its observables: {', '.join(observables)}" if observables else
+                                 "; or define it under the model's [observables]"))
     condition = get["condition"]
     if condition not in conditions:
         raise SpecError(src, f"row {number}, column condition", "not a condition of the fit", condition,
@@ -108,7 +112,7 @@ def _row(cells, number, where, src, species, times, conditions) -> tuple[tuple[s
                         f"sample times of [time]: {', '.join(f'{x:g}' for x in times[:12])}"
                         f"{' ...' if len(times) > 12 else ''}; add this time to [time] points")
     value = _number(get["value"], number, "value", src)
-    if value < 0:
+    if value < 0 and name in species:
         raise SpecError(src, f"row {number}, column value", "a count cannot be negative", get["value"],
                         "values are molecule counts >= 0")
     return (condition, int(hit[0]), name), value

@@ -130,12 +130,17 @@ def load(path: str | Path, store: str | Path | None = None, need_data: bool = Tr
     observed = None
     if need_data or data_path.exists():
         observed = datafile.read(data_path, src, sweep_spec.model.species, sweep_spec.times,
-                                 tuple(c for c, _ in conditions))
+                                 tuple(c for c, _ in conditions), observable_names(sweep_spec.model))
     digest = hashlib.sha256(b"\0".join([text.encode(), model_text.encode(),
                                         (observed.sha256 if observed else "").encode()])).hexdigest()
     return FitSpec(path, text, digest, doc, model_text, sweep_spec, prior, conditions, observed, data_path,
                    _settings(fit, sweep_spec.seed, src), _choice(fit, "distance", KINDS, src),
                    _choice(fit, "unfinished", UNFINISHED, src), folder)
+
+
+def observable_names(model) -> tuple[str, ...]:
+    """The model's observables, which the data file may name beside its species."""
+    return tuple(name for name, _ in model.observables)
 
 
 def _sweep_part(doc: dict, priors: dict, path: Path, model_text: str, folder: Path) -> Spec:

@@ -20,12 +20,13 @@ from sweep.fit.spec import FitSpec
 
 def simulate(fit: FitSpec, truth: Mapping[str, float], cells: int, seed: int, species: tuple[str, ...],
              times: tuple[float, ...] | None = None, out: Path | None = None) -> Path:
-    """Write ``cells`` simulated cells per (condition, time, species) to ``out`` (default: ``[fit].data``).
+    """Write ``cells`` simulated cells per (condition, time, species or observable) to ``out``
+    (default: ``[fit].data``).
 
     Raises
     ------
     SpecError
-        A true value is missing for a fitted parameter, or a species is not in the model.
+        A true value is missing for a fitted parameter, or a name is neither a species nor an observable.
     """
     import sweep
     from sweep.execute.execution import Execution
@@ -34,10 +35,14 @@ def simulate(fit: FitSpec, truth: Mapping[str, float], cells: int, seed: int, sp
         if name not in truth:
             raise SpecError(str(fit.path), f"fit.priors.{name}", "no true value given",
                             fix=f"give {name}=<value> to --simulate-data")
-    model_species = fit.sweep.model.species
+    from sweep.fit.spec import observable_names
+
+    model_species, model_observables = fit.sweep.model.species, observable_names(fit.sweep.model)
     for s in species:
-        if s not in model_species:
-            raise SpecError(str(fit.path), "--species", "unknown species", s, f"species: {', '.join(model_species)}")
+        if s not in model_species and s not in model_observables:
+            raise SpecError(str(fit.path), "--species", "unknown species or observable", s,
+                            f"species: {', '.join(model_species)}"
+                            + (f"; observables: {', '.join(model_observables)}" if model_observables else ""))
     times = times or tuple(t for t in fit.sweep.times if t > 0)
     out = Path(out) if out is not None else fit.data_path
     fixed = dict(fit.sweep.fixed)
@@ -60,12 +65,14 @@ def simulate(fit: FitSpec, truth: Mapping[str, float], cells: int, seed: int, sp
             raise RuntimeError("the data simulation stopped early")
         ds = sweep.open_results(spec.store)
         counts, status = ds["counts"].values, ds["status"].values
+        observed = ds["observables"].values if model_observables else None
     grid = list(fit.sweep.times)
     lines = ["time,condition,species,value"]
     for c, (name, _) in enumerate(fit.conditions):
         for t in times:
             for s in species:
-                values = counts[c, status[c] == 0, grid.index(t), model_species.index(s)]
+                values = (counts[c, status[c] == 0, grid.index(t), model_species.index(s)] if s in model_species
+                          else observed[c, status[c] == 0, grid.index(t), model_observables.index(s)])
                 lines += [f"{t:g},{name},{s},{v:g}" for v in values]
     out.parent.mkdir(parents=True, exist_ok=True)
     tmp_out = out.with_name(f".tmp-{out.name}-{os.getpid()}")

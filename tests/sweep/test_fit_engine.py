@@ -28,6 +28,12 @@ birth = { reaction = "0 -> X", rate = "k" }
 death = { reaction = "X -> 0", rate = "g" }
 """
 
+# an observable the data file may name (a negative one is allowed: it is not a count)
+OBSERVABLE = """
+[observables]
+doubled = "2 * X"
+"""
+
 SPEC = """
 model = "model.toml"
 [run]
@@ -52,8 +58,8 @@ b = {{ g = 2.0 }}
 """
 
 
-def _write(folder: Path, particles=12, rounds=2, data: str | None = None) -> Path:
-    (folder / "model.toml").write_text(MODEL, encoding="utf-8")
+def _write(folder: Path, particles=12, rounds=2, data: str | None = None, model: str = MODEL + OBSERVABLE) -> Path:
+    (folder / "model.toml").write_text(model, encoding="utf-8")
     spec = folder / "fit.toml"
     spec.write_text(SPEC.format(store=str(folder / "fit"), particles=particles, rounds=rounds), encoding="utf-8")
     if data is None:
@@ -67,6 +73,8 @@ def _write(folder: Path, particles=12, rounds=2, data: str | None = None) -> Pat
 
 BAD = {
     "unknown species": ("time,condition,species,value\n8,a,X,3\n8,b,Y,4\n", "row 3, column species"),
+    "negative count of a species, beside an observable": (
+        "time,condition,observable,value\n8,a,doubled,-3\n8,b,X,-4\n", "row 3, column value"),
     "negative count": ("time,condition,species,value\n8,a,X,3\n8,b,X,-4\n", "row 3, column value"),
     "time off the grid": ("time,condition,species,value\n8,a,X,3\n5,b,X,4\n", "row 3, column time"),
     "missing condition": ("time,condition,species,value\n8,a,X,3\n8,a,X,4\n", "column condition"),
@@ -146,3 +154,36 @@ def test_folder_of_another_fit_is_refused(tmp_path):
 def test_serial_with_a_cluster_is_refused(tmp_path):
     result = CliRunner().invoke(app, ["fit", str(_write(tmp_path)), "--serial", "--cluster", "slurm"])
     assert result.exit_code == 2 and "--serial" in result.output, result.output
+
+
+def test_data_may_name_an_observable_and_the_fit_reads_its_values(tmp_path):
+    """A data file naming an observable ("doubled" = 2 X) is compared with the stored observable,
+    which for every replicate is exactly twice its X count (common practice: a linear readout)."""
+    from sweep.fit.engine import SweepEvaluator
+    from sweep.fit.records import Folder
+    from sweep.fit.spec import load
+
+    rng = np.random.default_rng(2)  # invented data
+    lines = ["time,condition,species,value"] + [f"8,a,doubled,{2 * v}" for v in rng.poisson(10.0, 20)]
+    lines += [f"8,b,X,{v}" for v in rng.poisson(5.0, 20)] + [f"2,b,doubled,{2 * v}" for v in rng.poisson(4.0, 20)]
+    spec = _write(tmp_path, data="\n".join(lines) + "\n")
+    fit = load(spec)
+    assert [(c.condition, c.time, c.species) for c in fit.observed.components] == [
+        ("a", 8.0, "doubled"), ("b", 2.0, "doubled"), ("b", 8.0, "X")]
+    from sweep.execute.execution import Execution
+
+    evaluator = SweepEvaluator(fit, Folder(tmp_path / "fit", fit.prior.names, fit.prior.names),
+                               Execution("shard", shard=(1, 1)))
+    values, status = evaluator.simulate(np.array([[10.0], [20.0]]), tmp_path / "batch", seed=5)
+    assert values.shape == (2, 2, 20, 3) and (status == 0).all()
+    doubled_b_at_2, x_b_at_8 = values[:, 1, :, 1], values[:, 1, :, 2]
+    assert np.all(values[:, 0, :, 0] % 2 == 0) and np.all(doubled_b_at_2 % 2 == 0)
+    import sweep
+
+    ds = sweep.open_results(tmp_path / "batch" / "sims.zarr")
+    counts = ds["counts"].sel(species="X").values  # (point, replicate, time)
+    np.testing.assert_array_equal(values[:, 1, :, 1], 2 * counts[1::2, :, 1])  # point order: particle-major
+    np.testing.assert_array_equal(values[:, 1, :, 2], counts[1::2, :, 2])
+    np.testing.assert_array_equal(values[:, 0, :, 0], 2 * counts[0::2, :, 2])
+    result = CliRunner().invoke(app, ["fit", str(spec), "--serial"])
+    assert result.exit_code == 0, result.output
