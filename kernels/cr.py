@@ -56,7 +56,7 @@ import numpy as np
 from kernels import blocks
 from kernels.changes import watch_hit
 from kernels.network import KernelResult, Network, STATUS_EVENT_CAP, STATUS_NUMERICAL, STATUS_STOPPED, Trace
-from kernels.propensity import _U1, _U2, _U3, _U4, bits_float, float_bits, program, propensity
+from kernels.propensity import _K_BI, _K_ZERO, _U1, _U2, _U3, bits_float, float_bits, program, propensity
 from kernels.rng import next_words, to_open0, to_unit
 
 if TYPE_CHECKING:
@@ -284,8 +284,17 @@ def _run_one(prog, n_r, rates, law, x0, times, state, max_events, out, log_t, lo
         rebuild = False
         while q < end:
             dk = prog[q]
+            kind = dk >> 32
             pp = np.uint64(prog[q + _U1])
-            new = propensity(dk >> 32, bits_float(prog[q + _U2]), pp & _MASK32, pp >> _U32, x, prog, law, rates)
+            c = bits_float(prog[q + _U2])
+            if kind <= _K_BI:
+                # 0 -> ..., A -> ... and A + B -> ... as one product c * x_p1 * x_p2 with a factor 1.0 for
+                # a missing reactant (exact): no branch on the kind, which a network mixing them mispredicts
+                f1 = np.float64(x[pp & _MASK32])
+                f2 = np.float64(x[pp >> _U32])
+                new = c * (f1 if kind != _K_ZERO else 1.0) * (f2 if kind == _K_BI else 1.0)
+            else:
+                new = propensity(kind, c, pp & _MASK32, pp >> _U32, x, prog, law, rates)
             q += _U3
             e = _U2 * (np.uint64(dk) & _MASK32)
             old = bits_float(rec[e])
