@@ -131,9 +131,10 @@ DETERMINISTIC: frozenset[str] = frozenset(name for name, m in METHODS.items() if
 # Where each exact method is fastest, by the number of reactions (measured on the built-in chain,
 # ring and random networks, docs/notes/kernels.md): the direct method's search grows with R, the next
 # reaction method's heap with log R, composition-rejection's cost per event hardly at all in
-# operations, but both grow alike with the cache misses of a large network, and nrm was the faster
-# of the two at every size measured (100 to 10,000 reactions).
+# operations; both of the latter grow with the cache misses of a large network. nrm is the faster at
+# 100 and level at 1,000 reactions, cr 6-22% faster at 3,000 and 22-30% at 10,000 (interleaved rounds).
 SUGGEST_NRM_FROM = 64
+SUGGEST_CR_FROM = 3000
 ADVISE_FROM = 500  # from here ``sweep plan`` warns against the direct method (it is >= 3x slower)
 
 
@@ -142,10 +143,12 @@ def suggest(n_reactions: int) -> str:
 
     Example
     -------
-    >>> suggest(4), suggest(300)
-    ('direct', 'nrm')
+    >>> suggest(4), suggest(300), suggest(10_000)
+    ('direct', 'nrm', 'cr')
     """
-    return "direct" if n_reactions < SUGGEST_NRM_FROM else "nrm"
+    if n_reactions < SUGGEST_NRM_FROM:
+        return "direct"
+    return "nrm" if n_reactions < SUGGEST_CR_FROM else "cr"
 
 
 def advice(method: str, n_reactions: int) -> str | None:
@@ -162,8 +165,8 @@ def advice(method: str, n_reactions: int) -> str | None:
         return None
     return (f"method 'direct' on {n_reactions:,} reactions: its reaction search costs time in proportion to "
             "the number of reactions; method 'nrm' or 'cr' (composition-rejection) samples the same process "
-            "exactly at a cost per event that grows far less (8-9x faster at 1,000 reactions, 13-43x at "
-            "10,000 on the built-in networks; sweep bench --large)")
+            "exactly at a cost per event that grows far less (3-8x faster at 1,000 reactions, 20-68x at "
+            "10,000 on the built-in networks, cr the faster of the two from a few thousand; sweep bench --large)")
 
 
 def compiled(method: str, network: Network) -> bool:

@@ -61,6 +61,8 @@ def test_a_module_name_registered_as_a_string_reads_as_defaults(monkeypatch):
 def test_suggest_by_network_size():
     assert kernels.suggest(4) == "direct"
     assert kernels.suggest(kernels.SUGGEST_NRM_FROM) == "nrm"
+    assert kernels.suggest(kernels.SUGGEST_CR_FROM - 1) == "nrm"
+    assert kernels.suggest(kernels.SUGGEST_CR_FROM) == "cr"
     assert all(kernels.suggest(n) in kernels.METHODS for n in (1, 100, 10**6))
 
 
