@@ -8,8 +8,9 @@
 ``species`` (or ``observable``) names a species of the model or one of its ``[observables]``
 (a reporter's intensity, a sum of species), ``condition`` one of the fit spec's
 ``[fit.conditions]``, ``time`` one of the model's sample times (``[time]``), ``value`` a count
->= 0 for a species, any finite number for an observable. Each bad row is refused with the file, the row (the file's line number) and the column,
-and the fix; so is a condition declared in the spec that has no rows.
+>= 0 for a species, any finite number for an observable. Each bad row is refused with the file,
+the row (the file's line number) and the column, and the fix; so is a condition declared in the
+spec that has no rows.
 """
 
 from __future__ import annotations

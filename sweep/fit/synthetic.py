@@ -15,7 +15,7 @@ from typing import Mapping
 import numpy as np
 
 from sweep.errors import SpecError
-from sweep.fit.spec import FitSpec
+from sweep.fit.spec import FitSpec, observable_names
 
 
 def simulate(fit: FitSpec, truth: Mapping[str, float], cells: int, seed: int, species: tuple[str, ...],
@@ -35,8 +35,6 @@ def simulate(fit: FitSpec, truth: Mapping[str, float], cells: int, seed: int, sp
         if name not in truth:
             raise SpecError(str(fit.path), f"fit.priors.{name}", "no true value given",
                             fix=f"give {name}=<value> to --simulate-data")
-    from sweep.fit.spec import observable_names
-
     model_species, model_observables = fit.sweep.model.species, observable_names(fit.sweep.model)
     for s in species:
         if s not in model_species and s not in model_observables:
