@@ -18,14 +18,14 @@ EXIT_STOPPED = 1
 
 @exits_on_errors
 def fit(
-    spec_path: Annotated[Path, typer.Argument(metavar="FIT_SPEC", help="The fit spec (TOML with [fit] tables).")],
+    spec_path: Annotated[Path, typer.Argument(metavar="FIT_SPEC", help="The fit spec (TOML with \\[fit] tables).")],
     store: Annotated[Path | None, typer.Option(help="The fit's folder; overrides run.store.")] = None,
     workers: Annotated[int | None, typer.Option(min=1, help="Local worker processes (default: one per core).")] = None,
     scheduler: Annotated[str | None, typer.Option(help="Address (or scheduler file) of an existing Dask scheduler.")] = None,
     serial: Annotated[bool, typer.Option("--serial", help="Simulate in this process, with no Dask cluster.")] = False,
     fresh: Annotated[bool, typer.Option("--fresh", help="Delete this fit's folder and start over.")] = False,
     dry_run: Annotated[bool, typer.Option("--dry-run", help="Estimate the cost from a short calibration; run nothing.")] = False,
-    simulate_data: Annotated[str | None, typer.Option(metavar="NAME=VALUE,...", help="Write demo data to [fit].data from these true values, then stop.")] = None,
+    simulate_data: Annotated[str | None, typer.Option(metavar="NAME=VALUE,...", help="Write demo data to \\[fit].data from these true values, then stop.")] = None,
     cells: Annotated[int, typer.Option(min=2, help="With --simulate-data: cells per condition and time.")] = 200,
     data_seed: Annotated[int, typer.Option(help="With --simulate-data: seed of the data's simulation.")] = 1,
     species: Annotated[str | None, typer.Option(help="With --simulate-data: species or observables to write, comma-separated (default: the last species).")] = None,
@@ -36,7 +36,7 @@ def fit(
     walltime: Annotated[str | None, typer.Option(help="With --cluster: time limit of each worker job, HH:MM:SS.")] = None,
     max_jobs: Annotated[int | None, typer.Option(min=1, help="With --cluster: most worker jobs at once.")] = None,
 ) -> None:
-    """Fit the [fit.priors] parameters to the observed data; run again to resume where it stopped."""
+    """Fit the \\[fit.priors] parameters to the observed data; run again to resume where it stopped."""
     from sweep.execute.execution import Execution
     from sweep.fit import driver, report, synthetic
     from sweep.fit import spec as fitspec

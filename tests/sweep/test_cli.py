@@ -60,3 +60,14 @@ def test_bench_prints_events_per_second():
     result = runner.invoke(app, ["bench", "--network", "isomerization", "--repeats", "1"])
     assert result.exit_code == 0, result.output
     assert "isomerization" in result.output and "events / CPU-s" in result.output
+
+
+def test_help_shows_the_spec_tables_it_names():
+    """Square brackets are rich markup in typer's help: a table name like [fit] must be escaped, or
+    the help reads "TOML with  tables" (seen in ``sweep fit --help``)."""
+    for name in ("fit", "run", "submit"):
+        result = runner.invoke(app, [name, "--help"], terminal_width=200)
+        assert result.exit_code == 0, result.output
+        assert "  tables" not in result.output and "with a  table" not in result.output
+    fit_help = runner.invoke(app, ["fit", "--help"], terminal_width=200).output
+    assert "[fit] tables" in fit_help and "[fit.priors] parameters" in fit_help and "[fit].data" in fit_help
