@@ -45,7 +45,8 @@ def main() -> None:
         finally:
             short.unlink()
         began = time.perf_counter()
-        result = driver.run(loaded, Execution("local", workers=args.workers))
+        # the loop alone: the posterior predictive draws (a sweep of their own) are output, not the fit
+        result = driver.run(loaded, Execution("local", workers=args.workers), draws=0)
         fit_seconds = time.perf_counter() - began
         simulated = result.outcome.simulations
         rows, header, spec_text = [], None, None

@@ -10,7 +10,8 @@ again ends with the same bytes as one never interrupted.
 
 A round proposes candidates in batches. The first batch's size is the particles wanted divided
 by the acceptance expected (the last round's rate times the tolerance quantile), times a
-margin; each further batch is sized from the rate seen so far in the round. Accepted candidates
+margin; each further batch is sized from the rate seen so far in the round, and holds at least a
+quarter of the particles (``MIN_BATCH``). Accepted candidates
 are taken in candidate order until the round has its particles; the surplus of the last batch is
 simulated but not used (it is recorded, and counted in the budget).
 """
@@ -23,11 +24,16 @@ from typing import Callable, Protocol
 
 import numpy as np
 
+from sweep.errors import StoreError
 from sweep.fit import smc
 from sweep.fit.priors import Prior
 
 MARGIN = 1.2  # batches propose this much more than the expected acceptance needs
 MIN_RATE = 1e-3  # the acceptance assumed at worst when sizing a batch
+# a further batch proposes at least this share of the particles: sized from the shortfall alone, a
+# round's batches shrank geometrically (105, 40, 24, 7, 5, 5, 3, 2, 2 candidates in the demo's second
+# round), and each costs a sweep's set-up, a barrier and a read-back (~0.5 s here) whatever its size
+MIN_BATCH = 0.25
 
 
 @dataclass(frozen=True)
@@ -139,7 +145,11 @@ def _round(settings, prior, evaluator, records, t, previous, used):
     rate = 1.0 if previous is None else max(previous.acceptance * settings.quantile, MIN_RATE)
     most = settings.max_batch or 20 * n
     while len(taken) < n:
-        size = n if previous is None else min(most, math.ceil(MARGIN * (n - len(taken)) / max(rate, MIN_RATE)))
+        if previous is None:
+            size = n
+        else:
+            wanted = math.ceil(MARGIN * (n - len(taken)) / max(rate, MIN_RATE))
+            size = min(most, wanted if b == 0 else max(wanted, math.ceil(MIN_BATCH * n)))
         if settings.max_simulations is not None:
             size = min(size, (settings.max_simulations - used - spent) // evaluator.per_candidate)
             if size < 1:
@@ -150,6 +160,10 @@ def _round(settings, prior, evaluator, records, t, previous, used):
         theta, ancestor, inside = smc.propose(prior, previous, settings.seed, t, proposed, size)
         batch = Batch(t, b, proposed, theta, ancestor, inside)
         evaluated = records.batch(t, b)
+        if evaluated is not None and evaluated.distance.shape[0] != size:
+            raise StoreError(f"round {t} batch {b} was recorded with {evaluated.distance.shape[0]} candidates, "
+                             f"this version proposes {size} (its batch sizing changed): finish the fit with the "
+                             "version that began it, or run with --fresh")
         if evaluated is None:
             evaluated = evaluator.evaluate(batch)
             records.save_batch(batch, evaluated)

@@ -129,3 +129,32 @@ def test_every_choice_derives_from_seed_and_indices():
     b, _, _ = smc.propose(prior, None, 7, 0, 4, 3)  # candidates 4..6 on their own
     np.testing.assert_array_equal(a[4:7], b)
     assert smc.batch_seed(7, 1, 0) != smc.batch_seed(7, 0, 1)
+
+
+def test_later_batches_have_a_floor_and_a_changed_rule_is_refused(monkeypatch):
+    """Sized from the shortfall alone, a round's later batches shrank to a few candidates, each a
+    whole sweep (set-up, barrier, read-back). Every batch after a round's first proposes at least
+    MIN_BATCH x particles; and records written under another sizing rule are refused on resume,
+    naming the batch, instead of pairing recorded distances with other candidates."""
+    from sweep.errors import StoreError
+    from sweep.fit import loop
+
+    observed = observed_data(10.0, 1.0, (T_STATIONARY,), 50, 3)
+    prior = Prior((Margin("k", "uniform", 1.0, 30.0),))
+    settings = Settings(particles=40, quantile=0.3, max_rounds=4, seed=11)
+    records = MemoryRecords()
+    fit(settings, prior, PoissonEvaluator(observed, 50, 11), records)
+    later = [(t, b) for (t, b) in records.batches if t > 0 and b > 0]
+    assert later, "the check needs a round with more than one batch"
+    assert all(records.batches[key].distance.shape[0] >= loop.MIN_BATCH * 40 for key in later)
+
+    monkeypatch.setattr(loop, "MIN_BATCH", 5.0)  # a floor of 200 candidates: above every recorded later batch
+    assert all(records.batches[key].distance.shape[0] < 200 for key in later)
+    floored = MemoryRecords()
+    fit(settings, prior, PoissonEvaluator(observed, 50, 11), floored)
+    assert all(ev.distance.shape[0] >= 200 for (t, b), ev in floored.batches.items() if t > 0 and b > 0)
+
+    resumed = MemoryRecords()
+    resumed.batches = dict(records.batches)  # the batches only: every round is recomputed from them
+    with pytest.raises(StoreError, match=r"round \d+ batch \d+ was recorded with \d+ candidates"):
+        fit(settings, prior, PoissonEvaluator(observed, 50, 11), resumed)
