@@ -88,7 +88,7 @@ def _show(result, paths) -> None:
 
     import xarray as xr
 
-    ds = xr.open_zarr(result.posterior_path).load()
+    ds = xr.open_zarr(result.posterior_path, consolidated=False).load()
     table = Table(title=f"Posterior (stopped: {result.outcome.stopped})", title_justify="left")
     for col in ("parameter", "mean", "median", "50 % CI", "95 % CI"):
         table.add_column(col)
@@ -98,7 +98,8 @@ def _show(result, paths) -> None:
     console.print(table)
     console.print(f"{result.outcome.simulations:,} trajectories in all rounds; wall time {duration(result.seconds)}; "
                   f"{result.outcome.unfinished:,} replicates stopped early (counted, see docs/fit.md)", highlight=False)
-    console.print(f"posterior: xarray.open_zarr({shown(repr(str(result.posterior_path)))})", highlight=False)
+    console.print(f"posterior: xarray.open_zarr({shown(repr(str(result.posterior_path)))}, consolidated=False)",
+                  highlight=False)
     for name, path in paths.items():
         console.print(f"  {name}: {shown(path)}", highlight=False)
 

@@ -1,6 +1,6 @@
 """The fit's folder: what each batch and round found, kept so a rerun continues where it stopped.
 
-Layout (every ``.zarr`` here opens with ``xarray.open_zarr``)::
+Layout (every ``.zarr`` here opens with ``xarray.open_zarr(path, consolidated=False)``)::
 
     <folder>/fit.json                         which fit this is (spec, model and data SHA-256)
     <folder>/round_000/batch_000/spec.toml    the batch's sweep spec and its table of points
@@ -47,7 +47,7 @@ class Folder:
         path = self.batch_dir(round_, index) / "candidates.zarr"
         if not path.is_dir():
             return None
-        ds = xr.open_zarr(path).load()
+        ds = xr.open_zarr(path, consolidated=False).load()
         return Evaluated(ds["distance"].values, ds["components"].values, ds["unfinished"].values)
 
     def save_batch(self, batch: Batch, evaluated: Evaluated) -> None:
@@ -65,7 +65,7 @@ class Folder:
         path = self.round_dir(round_) / "population.zarr"
         if not path.is_dir():
             return None
-        ds = xr.open_zarr(path).load()
+        ds = xr.open_zarr(path, consolidated=False).load()
         a = ds.attrs
         return Population(int(a["round"]), ds["theta"].values, ds["weight"].values, ds["distance"].values,
                           float(a["tolerance"]), int(a["candidates"]), int(a["simulated"]), int(a["accepted"]),
@@ -105,6 +105,10 @@ def write(ds: xr.Dataset, path: Path) -> None:
     tmp = path.with_name(f"{_TMP}{path.name}-{os.getpid()}")
     if tmp.exists():
         shutil.rmtree(tmp)
+    # names as variable-length strings: a fixed-width unicode array has no Zarr v3 data type yet,
+    # and zarr warns about it on every write (stderr of every fit batch)
+    ds = ds.assign_coords({k: v.astype(object) for k, v in ds.coords.items() if v.dtype.kind == "U"})
+    ds = ds.assign({k: v.astype(object) for k, v in ds.data_vars.items() if v.dtype.kind == "U"})
     ds.to_zarr(tmp, mode="w", zarr_format=3, consolidated=False)
     if path.exists():  # written before (a rerun's posterior): same bytes, replaced
         shutil.rmtree(path)

@@ -14,7 +14,7 @@ from sweep.fit.spec import FitSpec
 def write(fit: FitSpec, result: FitSummary, truth: dict | None = None) -> dict[str, Path]:
     """``posterior.csv``, ``rounds.csv`` and the three figures in the fit's folder; their paths."""
     folder = result.folder
-    ds = xr.open_zarr(result.posterior_path).load()
+    ds = xr.open_zarr(result.posterior_path, consolidated=False).load()
     theta, weight = ds["theta"].values, ds["weight"].values
     names = list(ds["param"].values)
     out = {"posterior.csv": folder / "posterior.csv", "rounds.csv": folder / "rounds.csv"}
