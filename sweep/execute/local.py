@@ -38,10 +38,11 @@ from contextlib import contextmanager, suppress
 from multiprocessing import resource_tracker
 from typing import TYPE_CHECKING, Callable, Iterator
 
+import dask
 from distributed import Client, LocalCluster
 from distributed.security import Security
 
-from sweep.execute.pool import DaskPool
+from sweep.execute.pool import BOUNDED_LOGS, DaskPool
 
 if TYPE_CHECKING:
     from pathlib import Path
@@ -69,11 +70,12 @@ def connect(workers: int | None = None) -> Iterator[Client]:
         Ctrl-C while the cluster starts: what had started is closed first.
     """
     n = workers or os.cpu_count() or 1
-    cluster, client = _started(lambda: _open(n))
-    try:
-        yield client
-    finally:
-        _close(cluster, client)
+    with dask.config.set(BOUNDED_LOGS):
+        cluster, client = _started(lambda: _open(n))
+        try:
+            yield client
+        finally:
+            _close(cluster, client)
 
 
 def _open(n: int) -> tuple[LocalCluster, Client]:

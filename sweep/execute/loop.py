@@ -108,7 +108,8 @@ def drive(pool: Pool, schedule: Schedule, make_input: Callable[[list[Task]], Tas
     attempts: dict[tuple[int, int], int] = {}
     failed_now: set[tuple[int, int]] = set()
     began = time.perf_counter() - progress.elapsed
-    pending: deque[Task] = deque(schedule(record.done, failed_now))
+    pending = _Queue()
+    pending.extend(schedule(record.done, failed_now))
     tally.scheduled = len(pending)
     try:
         while True:
@@ -156,6 +157,40 @@ def drive(pool: Pool, schedule: Schedule, make_input: Callable[[list[Task]], Tas
         if note:
             tally.stopped = f"{tally.stopped}; {note}" if tally.stopped else note
     return tally
+
+
+class _Queue:
+    """The tasks still to submit, in order, taken from the schedule's sequences one at a time.
+
+    A sequence stays as given: a whole sweep's ``TaskList`` is never expanded into task objects.
+    """
+
+    def __init__(self) -> None:
+        self._parts: deque = deque()
+        self._at = 0  # place in the first part
+        self._left = 0
+
+    def __len__(self) -> int:
+        return self._left
+
+    def extend(self, tasks) -> None:
+        if len(tasks):
+            self._parts.append(tasks)
+            self._left += len(tasks)
+
+    def popleft(self) -> Task:
+        part = self._parts[0]
+        task = part[self._at]
+        self._at += 1
+        self._left -= 1
+        if self._at == len(part):
+            self._parts.popleft()
+            self._at = 0
+        return task
+
+    def clear(self) -> None:
+        self._parts.clear()
+        self._at = self._left = 0
 
 
 def _finished(result: TaskResult, record: Record, packer: Packer, tally: Tally, progress: Progress,

@@ -20,6 +20,13 @@ if TYPE_CHECKING:
     from sweep.execute.worker import TaskInput, TaskResult
 
 
+# distributed keeps its last `low-level-log-length` (1,000) sent batches for debugging, in the
+# client and the scheduler. A client's batch is a whole submission with every task's pickled
+# input (the network, rates, schedules), so a 100,000-task sweep held ~150 MB in that log, and a
+# large network's would hold gigabytes. A short log keeps the client's memory flat.
+BOUNDED_LOGS = {"distributed.admin.low-level-log-length": 10}
+
+
 @dataclass(frozen=True)
 class PoolInfo:
     """What a pool tells the caller once it is up."""

@@ -146,8 +146,7 @@ def run(spec: Spec, execution: Execution | None = None, *, on_start: Callable[[S
         with opened as (prepared, record):
             budget = Budget.starting_now(execution.time_left, clock) if execution.shard is not None else None
             schedule, scope, planner = _schedule(spec, prepared, record, execution)
-            already = int(record.done.sum()) if execution.shard is None else sum(
-                1 for t in scope if record.done[t.point, t.block])
+            already = int(record.done.sum()) if execution.shard is None else scope.count_done(record.done)
             tally, simulating = _drive(spec, execution, prepared, record, schedule, budget, already, on_start,
                                        on_progress)
             low_copy = _check_copy_numbers(spec, record) if tally.ran and execution.shard is None else None
@@ -196,7 +195,7 @@ def _schedule(spec: Spec, prepared, record, execution: Execution):
         if asked:
             return []  # one round: every block not done
         asked.append(True)
-        return [t for t in scope if not done[t.point, t.block]]
+        return scope.not_done(done)
 
     return pending, scope, None
 

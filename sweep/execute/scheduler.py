@@ -20,10 +20,11 @@ from contextlib import contextmanager
 from pathlib import Path
 from typing import TYPE_CHECKING, Iterator
 
+import dask
 from distributed import Client
 
 from sweep.errors import SweepError
-from sweep.execute.pool import DaskPool
+from sweep.execute.pool import BOUNDED_LOGS, DaskPool
 
 if TYPE_CHECKING:
     from sweep.execute.execution import Execution
@@ -50,14 +51,15 @@ def pool(execution: Execution, store: Path) -> Iterator[DaskPool]:
 
 @contextmanager
 def connect(address: str) -> Iterator[Client]:
-    if not is_file(address):
-        with _client(address, address=address) as client:
+    with dask.config.set(BOUNDED_LOGS):  # this client's log (the scheduler is the user's)
+        if not is_file(address):
+            with _client(address, address=address) as client:
+                yield client
+            return
+        _wait_for(Path(address))
+        with _client(address, scheduler_file=address) as client:
+            client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)
             yield client
-        return
-    _wait_for(Path(address))
-    with _client(address, scheduler_file=address) as client:
-        client.wait_for_workers(1, timeout=WORKER_WAIT_SECONDS)
-        yield client
 
 
 def _client(where: str, **how: str) -> Client:

@@ -27,7 +27,7 @@ from sweep import store
 
 from sweep.store import claims, integrity, lock, records
 from sweep.errors import SpecError, StoreError
-from sweep.execute.tasks import Task, make_tasks, n_blocks
+from sweep.execute.tasks import TaskList, make_tasks, n_blocks
 
 if TYPE_CHECKING:
     from sweep.execute.loop import FailedTask
@@ -41,7 +41,7 @@ class Prepared:
     """The store made ready: the design's points, every task of the sweep, and whether it resumed."""
 
     points: np.ndarray
-    tasks: list[Task]
+    tasks: TaskList
     resumed: bool
     repaired: tuple[str, ...] = ()  # what `integrity.mend` rewrote before the run
 
@@ -189,7 +189,7 @@ def _claim(spec: Spec, break_lock: bool) -> lock.Holder:
     return holder
 
 
-def select(tasks: list[Task], index: int, count: int) -> list[Task]:
+def select(tasks: TaskList, index: int, count: int) -> TaskList:
     """The tasks of shard ``index`` of ``count`` (1-based): every ``count``-th, from place ``index - 1``.
 
     The partition is over all tasks, so it never changes as tasks complete, and any contiguous

@@ -43,7 +43,7 @@ from distributed.security import Security
 from sweep.batch import jobs
 from sweep.batch.settings import ClusterConfig, for_store
 from sweep.errors import SweepError
-from sweep.execute.pool import DaskPool
+from sweep.execute.pool import BOUNDED_LOGS, DaskPool
 
 if TYPE_CHECKING:
     from sweep.execute.execution import Execution
@@ -286,7 +286,8 @@ def connect(cluster: ClusterConfig, store: Path) -> Iterator[Client]:
     log_dir = Path(config.log_dir).resolve()
     security = Security.temporary() if config.tls else None
     watch = _Watch(config, log_dir)
-    with _sigterm_as_interrupt(), dask.config.set({"distributed.deploy.lost-worker-timeout": LOST_WORKER_TIMEOUT,
+    with _sigterm_as_interrupt(), dask.config.set({**BOUNDED_LOGS,
+                                                   "distributed.deploy.lost-worker-timeout": LOST_WORKER_TIMEOUT,
                           # the dashboard listens on this host only (make_cluster): link to it there
                           "distributed.dashboard.link": "{scheme}://127.0.0.1:{port}/status"}):
         slurm = make_cluster(config, log_dir, security)

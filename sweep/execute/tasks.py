@@ -7,7 +7,9 @@ numbers do not depend on block size, worker count, order of execution or resumes
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Iterator
 
 import numpy as np
 
@@ -26,11 +28,46 @@ def n_blocks(replicates: int, per_task: int) -> int:
     return -(-replicates // per_task)
 
 
-def make_tasks(n_points: int, replicates: int, per_task: int) -> list[Task]:
+class TaskList(Sequence[Task]):
+    """Tasks of a sweep by their places in its fixed point-major order, each made when asked for.
+
+    A list of ``Task`` objects cost 214 bytes a task in the client (21 MB for 100,000 tasks) and
+    a second copy for the blocks not done; this holds a ``range`` of places, or an array of
+    them (8 bytes a task) once filtered by the completion record. Place ``i`` is block
+    ``i % blocks`` of point ``i // blocks``.
+    """
+
+    def __init__(self, n_points: int, replicates: int, per_task: int, places: range | np.ndarray | None = None):
+        self.n_points, self.replicates, self.per_task = n_points, replicates, per_task
+        self.blocks = n_blocks(replicates, per_task)
+        self.places = range(n_points * self.blocks) if places is None else places
+
+    def __len__(self) -> int:
+        return len(self.places)
+
+    def __getitem__(self, i):
+        if isinstance(i, slice):
+            return TaskList(self.n_points, self.replicates, self.per_task, self.places[i])
+        point, block = divmod(int(self.places[i]), self.blocks)
+        start = block * self.per_task
+        return Task(point, block, start, min(start + self.per_task, self.replicates))
+
+    def __iter__(self) -> Iterator[Task]:
+        for i in range(len(self.places)):
+            yield self[i]
+
+    def not_done(self, done: np.ndarray) -> "TaskList":
+        """These tasks less those ``done`` (points x blocks) marks."""
+        places = np.asarray(self.places, dtype=np.int64)
+        return TaskList(self.n_points, self.replicates, self.per_task, places[~done.reshape(-1)[places]])
+
+    def count_done(self, done: np.ndarray) -> int:
+        return int(done.reshape(-1)[np.asarray(self.places, dtype=np.int64)].sum())
+
+
+def make_tasks(n_points: int, replicates: int, per_task: int) -> TaskList:
     """All tasks of a sweep, point-major, in a fixed order."""
-    blocks = n_blocks(replicates, per_task)
-    return [Task(p, b, b * per_task, min((b + 1) * per_task, replicates))
-            for p in range(n_points) for b in range(blocks)]
+    return TaskList(n_points, replicates, per_task)
 
 
 def replicate_seeds(root: int, point: int, start: int, stop: int) -> list[np.random.SeedSequence]:

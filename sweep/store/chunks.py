@@ -28,6 +28,7 @@ opened afresh. A store whose arrays use another codec chain is written through z
 from __future__ import annotations
 
 import contextlib
+import math
 import os
 import threading
 import uuid
@@ -106,6 +107,29 @@ class _Array:
             return payload, 0
         crc = google_crc32c.value(payload)
         return payload + crc.to_bytes(4, "little"), crc
+
+    def decode(self, data: bytes, where: str) -> np.ndarray:
+        """One chunk file's values, in the chunk's shape (the inverse of ``encode``).
+
+        Raises
+        ------
+        StoreError
+            If the trailing CRC-32C does not match, or the chunk does not decode to its shape.
+        """
+        import google_crc32c
+
+        from numcodecs import blosc
+
+        if self.crc:
+            data, stored = data[:-4], int.from_bytes(data[-4:], "little")
+            if google_crc32c.value(data) != stored:
+                raise StoreError(f"{where}: checksum mismatch (the chunk file is damaged)")
+        raw = blosc.decompress(data) if self.blosc is not None else data  # Blosc frames say their own settings
+        values = np.frombuffer(raw, dtype=self.dtype.newbyteorder("<"))
+        size = math.prod(self.chunks)
+        if values.size != size:
+            raise StoreError(f"{where}: decodes to {values.size} values, not the chunk's {size}")
+        return values.reshape(self.chunks).astype(self.dtype, copy=False)
 
 
 class ChunkWriter:
@@ -247,6 +271,46 @@ class ChunkWriter:
             raise StoreError(f"{self.root}: {folder.relative_to(self.root)} leads out of the store through a "
                              "symlink; refusing to write there")
         self._known_dirs.add(key)
+
+
+def read_whole(root: str | Path, name: str) -> np.ndarray | None:
+    """Every value of a data array, read chunk by chunk without zarr.
+
+    zarr spends about 0.5 ms on each chunk: reading the ``status`` of a 100,000-task store took
+    about a minute, and a fit's read-back of each batch a quarter of a second. Reading the files
+    directly takes a tenth of that. Chunks never written read as the fill value, as through
+    zarr. Returns None when the array's codec chain is not the one this module writes, or its
+    chunks split more than the point and replicate axes (the caller reads through zarr).
+
+    Raises
+    ------
+    StoreError
+        If a chunk fails its checksum or does not decode.
+    """
+    import zarr
+
+    root = Path(root)
+    writer = ChunkWriter._load(root)
+    if writer is None or name not in writer.arrays:
+        return None
+    array = writer.arrays[name]
+    shape = tuple(zarr.open_array(root / name, mode="r").shape)
+    if len(shape) < 2 or tuple(array.chunks[2:]) != shape[2:]:
+        return None
+    rows, per = array.chunks[0], array.chunks[1]
+    n_p, n_b = -(-shape[0] // rows), -(-shape[1] // per)
+    out = np.full((n_p * rows, n_b * per) + shape[2:], array.fill, dtype=array.dtype)
+    folder = os.path.join(root, name)
+    for p in range(n_p):
+        for b in range(n_b):
+            key = array.key(p, b)
+            try:
+                with open(os.path.join(folder, key), "rb", buffering=0) as fh:
+                    data = fh.readall()
+            except FileNotFoundError:
+                continue
+            out[p * rows:(p + 1) * rows, b * per:(b + 1) * per] = array.decode(data, f"{name}/{key}")
+    return out[:shape[0], :shape[1]]
 
 
 def remove_stale(target: Path) -> int:

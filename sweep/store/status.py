@@ -12,6 +12,7 @@ import zarr
 from sweep import store
 
 from sweep.store import claims, integrity, lock, records
+from sweep.store.chunks import read_whole
 @dataclass(frozen=True)
 class FailedPoint:
     point: int
@@ -89,7 +90,7 @@ def status(path: str | Path) -> StoreStatus:
     except store.DamagedDone as exc:
         damaged.append(str(exc))
         done = np.zeros((status_array.shape[0], blocks), dtype=bool)
-    codes = _read(g, "status", damaged, np.full(status_array.shape, -1, dtype=np.int8))
+    codes = _read(g, "status", damaged, np.full(status_array.shape, -1, dtype=np.int8), direct=path)
     names = tuple(str(v) for v in _read(g, "param", damaged, np.asarray([], dtype=object)))
     params = _read(g, "params", damaged, np.full((done.shape[0], len(names)), np.nan))
     species = tuple(str(v) for v in _read(g, "species", damaged, np.asarray([], dtype=object)))
@@ -127,9 +128,18 @@ def _low_copy(path: Path, attrs: dict) -> dict | None:
     return found if isinstance(found, dict) else None
 
 
-def _read(g: zarr.Group, name: str, damaged: list[str], fallback: np.ndarray) -> np.ndarray:
-    """An array's values, or ``fallback`` with a note when it is missing or fails its checksum."""
+def _read(g: zarr.Group, name: str, damaged: list[str], fallback: np.ndarray,
+          direct: Path | None = None) -> np.ndarray:
+    """An array's values, or ``fallback`` with a note when it is missing or fails its checksum.
+
+    With ``direct`` (the store's path) a per-task array is read file by file (``read_whole``:
+    zarr's 0.5 ms a chunk made `sweep status` of a 100,000-task store take a minute).
+    """
     try:
+        if direct is not None:
+            values = read_whole(direct, name)
+            if values is not None:
+                return values
         return g[name][:]
     except Exception as exc:
         damaged.append(f"{name}: unreadable ({store.brief(exc)})")

@@ -130,3 +130,29 @@ def test_a_dead_writers_partial_goes_when_its_chunk_is_written_again(tmp_path):
     (folder / "1.0123abcd.partial").write_bytes(b"torn")  # another chunk's: left for its own writer
     store.write_block(ours, 0, 0, 10, _block(3), store_id="x")
     assert sorted(p.name for p in folder.iterdir()) == ["0", "1.0123abcd.partial"]
+
+
+def test_a_whole_array_read_file_by_file_equals_zarrs_read_and_refuses_a_damaged_chunk(tmp_path):
+    """``read_whole`` (`sweep status`, a fit's read-back) gives zarr's values: full, edge and never-written chunks."""
+    from sweep.errors import StoreError
+    from sweep.store.chunks import read_whole
+
+    _, ours = _twin_stores(tmp_path, "int32")
+    rng = np.random.default_rng(5)
+    for point, start, stop in [(0, 0, 10), (0, 20, 25), (1, 10, 20)]:  # (0, 10:20) and (1, 0:10) never written
+        n = stop - start
+        store.write_block(ours, point, start, stop,
+                          KernelResult(rng.integers(0, 9, size=(n, 7, 3)).astype(np.int32),
+                                       rng.integers(0, 3, size=n).astype(np.int8),
+                                       rng.integers(0, 10**6, size=n).astype(np.int64)), store_id="x")
+    g = zarr.open_group(ours, mode="r")
+    for name in ("counts", "status", "events"):
+        direct = read_whole(ours, name)
+        np.testing.assert_array_equal(direct, g[name][:])
+        assert direct.dtype == g[name].dtype and (direct[1, :10] == -1).all() and direct[0, 10:20].min() == -1
+    chunk = ours / "status/c/1/1"
+    raw = bytearray(chunk.read_bytes())
+    raw[len(raw) // 2] ^= 0xFF
+    chunk.write_bytes(bytes(raw))
+    with pytest.raises(StoreError, match="status/c/1/1: checksum mismatch"):
+        read_whole(ours, "status")

@@ -98,3 +98,25 @@ def test_the_packer_aims_at_its_target_and_stays_within_bounds():
     packer.learn(1.996, 2)  # now a second a block on average: one block a task
     assert packer.size() == 1
     assert Packer(target=0.2, most=500, fixed=9).size() == 9
+
+
+def test_the_task_list_is_the_point_major_order_made_on_demand():
+    from sweep.execute.session import select
+    from sweep.execute.tasks import Task, make_tasks
+
+    n_points, replicates, per_task = 7, 25, 10  # 3 blocks a point, the last one short
+    tasks = make_tasks(n_points, replicates, per_task)
+    expected = [Task(p, b, b * per_task, min((b + 1) * per_task, replicates))
+                for p in range(n_points) for b in range(3)]
+    assert len(tasks) == 21 and list(tasks) == expected and tasks[-1] == expected[-1]
+    assert list(tasks[2:9]) == expected[2:9]
+    for index in (1, 2, 3):  # shards: every 3rd place from index - 1
+        assert list(select(tasks, index, 3)) == expected[index - 1::3]
+    done = np.zeros((n_points, 3), dtype=bool)
+    done[0, :] = done[4, 1] = done[6, 2] = True
+    left = [t for t in expected if not done[t.point, t.block]]
+    assert list(tasks.not_done(done)) == left and len(tasks.not_done(done)) == 16
+    shard = select(tasks, 2, 3)
+    assert list(shard.not_done(done)) == [t for t in expected[1::3] if not done[t.point, t.block]]
+    assert shard.count_done(done) == sum(done[t.point, t.block] for t in expected[1::3])
+    assert isinstance(tasks.not_done(done).places, np.ndarray)  # 8 bytes a task, no Task objects
