@@ -67,15 +67,22 @@ class DaskPool:
         from distributed import as_completed
 
         self.client = client
-        workers = len(client.scheduler_info(n_workers=-1)["workers"])
+        self._workers = tuple(sorted(client.scheduler_info(n_workers=-1)["workers"]))
+        workers = len(self._workers)
         self.info = PoolInfo(workers, max(slots, workers, 1), client.dashboard_link, client.scheduler.address)
         self._completed = as_completed([], with_results=True, raise_errors=False)
         self._owner: dict[str, TaskInput] = {}
 
     def warm(self, task: TaskInput) -> None:
+        """Every worker imports and loads the cached kernel at once (once per set of workers and
+        kernel: a fit's batches run on one client, and a round trip to each worker costs ~0.1 s)."""
         from sweep.execute.worker import warm_up
 
-        self.client.run(warm_up, task)  # every worker imports and loads the cached kernel at once
+        key = (self.client.scheduler.address, self._workers, _kernel_key(task))
+        if key in _WARMED:
+            return
+        self.client.run(warm_up, task)
+        _WARMED.add(key)
 
     def submit(self, tasks: list[TaskInput]) -> None:
         from sweep.execute.worker import run_task
@@ -101,3 +108,15 @@ class DaskPool:
             self.client.cancel(futures)
         self._completed.clear()
         self._owner.clear()
+
+
+_WARMED: set[tuple] = set()  # (scheduler, its workers, kernel) already warmed by this process
+
+
+def _kernel_key(task: TaskInput) -> str:
+    """What decides which compiled kernel a task loads: its method, network and options."""
+    import hashlib
+    import pickle
+
+    b = task.blocks[0]
+    return hashlib.sha256(pickle.dumps((task.method, task.network, task.options, b.changes is None))).hexdigest()
