@@ -32,15 +32,9 @@ import time
 import urllib.request
 from pathlib import Path
 
-SPEC = """
-[model.species]
-A = 0
-[model.parameters]
-k = 5.0
-g = 0.5
-[model.reactions]
-birth = {{ reaction = "0 -> A", rate = "k" }}
-death = {{ reaction = "A -> 0", rate = "g" }}
+from sweep.plan.throughput import BIRTH_DEATH  # the bench's tiny model (numpy only: no cluster imported)
+
+SPEC = BIRTH_DEATH.replace("{", "{{").replace("}", "}}") + """
 [run]
 store = "{store}"
 replicates = 10
